@@ -1,0 +1,87 @@
+"""The monthly run: ingest → validate (quality gate) → features → train → accuracy gate → publish → report."""
+
+from __future__ import annotations
+
+import uuid
+from pathlib import Path
+
+from prefect import flow, task
+from prefect.cache_policies import NO_CACHE
+from prefect.runtime import flow_run
+
+from tasks.alerts import alert_owners_hook
+from tasks.errors import GateStopped
+from tasks.features import build_features_task
+from tasks.gates import accuracy_gate_task, quality_gate_task
+from tasks.ingest import find_manifests, ingest_customers_task, ingest_extract_task
+from tasks.publish import publish_task
+from tasks.report import report_task
+from tasks.runlog import RunLog
+from tasks.settings import get_settings
+from tasks.train import train_task
+from tasks.validate import validate_load_task
+from tasks.warehouse import Period
+
+
+@task(name="find-extracts", cache_policy=NO_CACHE)
+def find_extracts_task(landing_dir: Path, periods: list[str]) -> list[Path]:
+    return [m.path for p in periods for m in find_manifests(landing_dir, p)]
+
+
+@flow(name="ledgerband-monthly-run", on_failure=[alert_owners_hook], log_prints=True)
+def monthly_run(period: str, landing_dir: Path | None = None) -> dict:
+    """Run one month end to end; raises GateStopped (flow FAILED, owners alerted) when a gate stops it.
+
+    Every month of the feature window is ingested if it has not been already, so a missed month is
+    caught up; files already accepted are skipped by checksum.
+    """
+    settings = get_settings()
+    Period.parse(period)
+    landing = Path(landing_dir) if landing_dir else settings.landing
+    warehouse = settings.warehouse_path
+    run_id = str(flow_run.id or uuid.uuid4())
+    log = RunLog(warehouse, run_id, period)
+    result: dict = {"run_id": run_id, "period": period, "warehouse": str(warehouse)}
+    try:
+        with log.stage("ingest") as stage:
+            window = [str(p) for p in Period.parse(period).window(settings.features.window_months)]
+            manifests = find_extracts_task(landing, window)
+            loads = [ingest_extract_task(warehouse, m, run_id) for m in manifests]
+            loads.append(ingest_customers_task(warehouse, landing / "customers.csv", run_id))
+            stage["detail"] = {l["source_file"]: l["status"] for l in loads}
+        with log.stage("validate") as stage:
+            new = [l for l in loads if l["status"] == "loaded" and l["period"] is not None]
+            validations = [validate_load_task(warehouse, l["load_id"], settings) for l in new]
+            quality = quality_gate_task(warehouse, run_id, period, validations, settings)
+            log.gate_figures["quality"] = quality
+            stage["detail"] = quality["reason"]
+            if not quality["passed"]:
+                raise GateStopped("quality", quality["reason"])
+        with log.stage("features") as stage:
+            stage["detail"] = build_features_task(warehouse, period, settings)
+        with log.stage("train") as stage:
+            train = train_task(warehouse, run_id, period, settings)
+            stage["detail"] = {"champion": train["champion"], "n_labelled": train["n_labelled"]}
+        with log.stage("accuracy_gate") as stage:
+            accuracy = accuracy_gate_task(warehouse, run_id, period, train, settings)
+            log.gate_figures["accuracy"] = accuracy
+            stage["detail"] = accuracy["reason"]
+        if accuracy["passed"]:
+            with log.stage("publish") as stage:
+                result["publish"] = stage["detail"] = publish_task(warehouse, run_id, period, train["model_version"],
+                                                                   settings)
+        with log.stage("report"):
+            result["report"] = report_task(warehouse, run_id, period, settings)
+        if not accuracy["passed"]:
+            raise GateStopped("accuracy", accuracy["reason"] + f" — report: {result['report']}")
+    except GateStopped as exc:
+        log.finish("withheld" if exc.gate == "accuracy" else "stopped", str(exc))
+        raise
+    except BaseException as exc:
+        log.finish("failed", f"{type(exc).__name__}: {exc}")
+        raise
+    log.finish("published")
+    result.update(status="published", quality=quality, accuracy=accuracy,
+                  champion=train["champion"], candidates=train["candidates"],
+                  published_path=str(settings.published_path))
+    return result

@@ -1,0 +1,103 @@
+"""Publish: a new snapshot of the band tables, switched in atomically, plus a reader copy.
+
+Inside one transaction the snapshot's rows are written, checked (one row per customer, every
+customer banded, summary totals equal to the band rows) and made current. Any error rolls the whole
+thing back and the previous snapshot stays current. Readers never open the working warehouse (DuckDB
+lets no other process open a file one process writes): they open a separate published file, rebuilt
+beside the old one and moved over it in one rename.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from datetime import datetime
+from pathlib import Path
+
+import duckdb
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
+from tasks.bands import write_band_table
+from tasks.errors import LedgerbandError
+from tasks.settings import Settings
+from tasks.warehouse import open_warehouse, sql_file
+
+READER_TABLES = {
+    "income_bands": "select * from published.income_bands",
+    "band_summary": "select * from published.band_summary",
+    "income_band_scheme": "select * from ref.income_bands",
+    "snapshots": "select * from published.snapshots",
+    "decisions": "select * from published.decisions",
+}
+
+
+def _insert_from_file(con: duckdb.DuckDBPyConnection, table: str, name: str, params: dict) -> None:
+    query = sql_file("published", name).read_text().strip().rstrip(";")
+    used = {k: v for k, v in params.items() if f"${k}" in query}
+    con.execute(f"insert into {table}\n{query}", used)
+
+
+def publish_snapshot(con: duckdb.DuckDBPyConnection, run_id: str, period: str, model_version: str,
+                     settings: Settings) -> dict:
+    """Write and switch to a new snapshot. Returns its row counts."""
+    published_at = datetime.now()
+    params = {"run_id": run_id, "period": period, "model_version": model_version, "published_at": published_at}
+    con.execute("begin transaction")
+    try:
+        write_band_table(con, settings.bands.edges, settings.bands.currency)
+        for table in ("income_bands_history", "band_summary_history", "snapshots"):
+            con.execute(f"delete from published.{table} where run_id = ?", [run_id])
+        _insert_from_file(con, "published.income_bands_history", "income_bands", params)
+        _insert_from_file(con, "published.band_summary_history", "band_summary", params)
+        band_rows, distinct_customers = con.execute(
+            "select count(*)::bigint, count(distinct customer_id)::bigint "
+            "from published.income_bands_history where run_id = ?", [run_id]
+        ).fetchall()[0]
+        customers = con.execute("select count(*)::bigint from features.customer").fetchall()[0][0]
+        summary_total = con.execute(
+            "select coalesce(sum(customer_count), 0)::bigint from published.band_summary_history where run_id = ?",
+            [run_id],
+        ).fetchall()[0][0]
+        if not (band_rows == distinct_customers == customers == summary_total):
+            raise LedgerbandError(
+                f"snapshot check failed: {band_rows} band rows, {distinct_customers} distinct customers, "
+                f"{customers} customers in features.customer, {summary_total} in the summary; nothing published"
+            )
+        con.execute("update published.snapshots set is_current = false where is_current")
+        con.execute(
+            "insert into published.snapshots values (?, ?, ?, ?, ?, true, ?)",
+            [run_id, period, model_version, json.dumps(list(settings.bands.edges)), band_rows, published_at],
+        )
+        con.execute("commit")
+    except Exception:
+        con.execute("rollback")
+        raise
+    return {"run_id": run_id, "customers": int(band_rows), "published_at": published_at.isoformat(timespec="seconds")}
+
+
+def export_reader_copy(con: duckdb.DuckDBPyConnection, target: Path) -> Path:
+    """Rebuild the readers' DuckDB file beside the old one, then move it over in one rename."""
+    target.parent.mkdir(parents=True, exist_ok=True)
+    tmp = target.with_name(target.name + ".incoming")
+    tmp.unlink(missing_ok=True)
+    con.execute(f"attach '{_sql_path(tmp)}' as reader_copy")
+    try:
+        for name, query in READER_TABLES.items():
+            con.execute(f"create table reader_copy.{name} as {query}")
+    finally:
+        con.execute("detach reader_copy")
+    os.replace(tmp, target)
+    return target
+
+
+def _sql_path(path: Path) -> str:
+    return str(path).replace("'", "''")
+
+
+@task(name="publish-snapshot", cache_policy=NO_CACHE)
+def publish_task(warehouse: Path, run_id: str, period: str, model_version: str, settings: Settings) -> dict:
+    with open_warehouse(warehouse) as con:
+        result = publish_snapshot(con, run_id, period, model_version, settings)
+        result["reader_copy"] = str(export_reader_copy(con, settings.published_path))
+    return result

@@ -1,0 +1,123 @@
+"""Report: one static HTML page per run (no scripts, no network): gates, models, bands, cautions."""
+
+from __future__ import annotations
+
+import json
+from datetime import datetime
+from pathlib import Path
+
+import duckdb
+from jinja2 import Environment, FileSystemLoader, select_autoescape
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
+from tasks.settings import Settings
+from tasks.warehouse import open_warehouse
+
+TEMPLATES = Path(__file__).resolve().parent / "templates"
+
+CAUTIONS = (
+    "Internal reporting only. These bands estimate income from account behaviour; they are not verified "
+    "income and must never replace verified income in a credit, affordability or pricing decision.",
+    "Estimates about individuals can be wrong, and wrong in ways that differ between groups of customers. "
+    "Read the accuracy figures before using any band, and do not act on one customer's band alone.",
+    "Protected attributes (sex, age, birth date) are not model features by default; the settings refuse "
+    "them unless explicitly allowed after review.",
+    "Transaction data is personal data. Identifiers here are pseudonymous; keep the published tables "
+    "inside the bank, on a need-to-know basis, and follow the retention rules that apply.",
+    "Local law and the bank's own policies take precedence over anything in this report.",
+)
+
+
+def _rows(con: duckdb.DuckDBPyConnection, query: str, params: list) -> list[dict]:
+    cur = con.execute(query, params)
+    names = [d[0] for d in cur.description]
+    return [dict(zip(names, r, strict=True)) for r in cur.fetchall()]
+
+
+def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: Settings) -> dict:
+    """Everything the report shows, read back from the warehouse (the report computes nothing new)."""
+    run = _rows(con, "select * from ops.runs where run_id = ?", [run_id])
+    decisions = _rows(con, "select * from published.decisions where run_id = ? order by decided_at", [run_id])
+    for d in decisions:
+        d["figures"] = json.loads(d["figures"])
+        d["thresholds"] = json.loads(d["thresholds"])
+    loads = _rows(
+        con,
+        "select source_file, period, rows_in_file, rows_loaded, rows_quarantined, status, reason, "
+        "case when rows_in_file > 0 then rows_quarantined / rows_in_file end as quarantined_share "
+        "from ops.loads where dataset = 'ledger' order by period, source_file",
+        [],
+    )
+    models = _rows(con, "select * from ml.model_runs where run_id = ? order by rmse_mean", [run_id])
+    bands = _rows(
+        con,
+        """
+        select b.band_index, b.income_band, b.band_label,
+               count(h.customer_id) filter (where h.band_source = 'observed_salary') as observed,
+               count(h.customer_id) filter (where h.band_source = 'model_estimate') as estimated,
+               count(h.customer_id) as customers
+        from ref.income_bands as b
+        left join published.income_bands_history as h on h.income_band = b.income_band and h.run_id = ?
+        group by all order by b.band_index
+        """,
+        [run_id],
+    ) if _has_table(con, "ref", "income_bands") else []
+    by_region = _rows(
+        con,
+        "select home_region, income_band, sum(customer_count)::bigint as customers "
+        "from published.band_summary_history where run_id = ? group by all order by home_region, income_band",
+        [run_id],
+    )
+    regions: dict[str, dict[str, int]] = {}
+    for r in by_region:
+        regions.setdefault(r["home_region"], {})[r["income_band"]] = r["customers"]
+    published = any(d["gate"] == "accuracy" and d["decision"] == "pass" for d in decisions)
+    return {
+        "run_id": run_id,
+        "period": period,
+        "generated_at": datetime.now().isoformat(timespec="seconds"),
+        "run": run[0] if run else {},
+        "stages": json.loads(run[0]["stages"]) if run and run[0]["stages"] else [],
+        "decisions": decisions,
+        "published": published,
+        "loads": loads,
+        "models": models,
+        "bands": bands,
+        "max_band_count": max([b["customers"] for b in bands] or [1]) or 1,
+        "regions": regions,
+        "band_codes": [b["income_band"] for b in bands],
+        "cautions": CAUTIONS,
+        "settings": {"window_months": settings.features.window_months, "folds": settings.train.cv_folds,
+                     "repeats": settings.train.cv_repeats, "currency": settings.bands.currency,
+                     "features": list(settings.train.numeric_features) + list(settings.train.categorical_features)},
+        "published_path": str(settings.published_path),
+    }
+
+
+def _has_table(con: duckdb.DuckDBPyConnection, schema: str, name: str) -> bool:
+    return bool(con.execute(
+        "select count(*) from information_schema.tables where table_schema = ? and table_name = ?", [schema, name]
+    ).fetchall()[0][0])
+
+
+def render(context: dict) -> str:
+    env = Environment(loader=FileSystemLoader(TEMPLATES), autoescape=select_autoescape(["html", "j2"]))
+    env.filters["num"] = lambda x, d=0: "–" if x is None else f"{x:,.{d}f}"
+    env.filters["pct"] = lambda x: "–" if x is None else f"{100 * x:.1f}%"
+    return env.get_template("run_report.html.j2").render(**context)
+
+
+def write_report(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: Settings) -> Path:
+    out = settings.reports_dir / period / "index.html"
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = out.with_name("index.html.incoming")
+    tmp.write_text(render(gather(con, run_id, period, settings)), encoding="utf-8")
+    tmp.replace(out)
+    return out
+
+
+@task(name="write-report", cache_policy=NO_CACHE)
+def report_task(warehouse: Path, run_id: str, period: str, settings: Settings) -> str:
+    with open_warehouse(warehouse) as con:
+        return str(write_report(con, run_id, period, settings))

@@ -1,0 +1,207 @@
+"""One settings object for the whole pipeline.
+
+Read, in rising precedence, from the defaults below, `ledgerband.toml` (path in `LEDGERBAND_CONFIG`,
+else `./ledgerband.toml` beside the project), and `LEDGERBAND_*` environment variables (nested keys
+with `__`, e.g. `LEDGERBAND_ACCURACY__MIN_SKILL_OVER_BASELINE=0.3`). Unknown keys fail loudly.
+"""
+
+from __future__ import annotations
+
+import os
+from functools import lru_cache
+from pathlib import Path
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic_settings import BaseSettings, PydanticBaseSettingsSource, SettingsConfigDict, TomlConfigSettingsSource
+
+PROJECT_ROOT = Path(__file__).resolve().parents[1]
+
+
+def _config_file() -> Path:
+    return Path(os.environ.get("LEDGERBAND_CONFIG", PROJECT_ROOT / "ledgerband.toml"))
+
+
+def _default_home() -> Path:
+    return Path(os.environ.get("LEDGERBAND_HOME", PROJECT_ROOT / ".ledgerband"))
+
+
+class _Section(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class QualitySettings(_Section):
+    max_quarantine_share: float = Field(0.01, ge=0, le=1)
+    """Largest share of an extract's rows that may be quarantined before the run stops."""
+    chunk_rows: int = Field(250_000, gt=0)
+    """Rows per chunk handed to the row-level expectation suite (bounds memory on large extracts)."""
+
+
+class AccuracySettings(_Section):
+    min_labelled_customers: int = Field(200, ge=10)
+    min_skill_over_baseline: float = Field(0.20, ge=0, lt=1)
+    """1 - RMSE(champion) / RMSE(predict-the-mean), from repeated cross-validation."""
+    min_band_accuracy: float = Field(0.45, ge=0, le=1)
+    min_within_one_band: float = Field(0.85, ge=0, le=1)
+
+
+class TrainSettings(_Section):
+    cv_folds: int = Field(5, ge=2)
+    cv_repeats: int = Field(3, ge=1)
+    random_state: int = 20261101
+    tree_max_depth: int = Field(6, ge=1)
+    tree_min_samples_leaf: int = Field(20, ge=1)
+    numeric_features: tuple[str, ...] = (
+        "txn_per_week",
+        "largest_debit",
+        "count_large_debits",
+        "days_with_txn",
+        "mean_txn_amount",
+        "median_balance",
+        "total_debit_amount",
+    )
+    categorical_features: tuple[str, ...] = ("top_merchant_region", "home_region")
+    protected_attributes: tuple[str, ...] = ("sex", "age_years", "birth_date")
+    allow_protected_features: bool = False
+
+    @model_validator(mode="after")
+    def _no_protected_features(self) -> TrainSettings:
+        used = set(self.numeric_features) | set(self.categorical_features)
+        clash = sorted(used & set(self.protected_attributes))
+        if clash and not self.allow_protected_features:
+            raise ValueError(
+                f"model features {clash} are protected attributes; remove them or set "
+                "train.allow_protected_features = true after a documented legal review"
+            )
+        return self
+
+
+class BandSettings(_Section):
+    edges: tuple[float, ...] = (25_000, 40_000, 60_000, 85_000, 120_000)
+    """Lower edges of every band but the first, in the ledger currency per year."""
+    currency: str = "EUR"
+
+    @field_validator("edges")
+    @classmethod
+    def _increasing(cls, v: tuple[float, ...]) -> tuple[float, ...]:
+        if not v or any(b <= a for a, b in zip(v, v[1:], strict=False)) or v[0] <= 0:
+            raise ValueError("band edges must be positive and strictly increasing")
+        return v
+
+
+class FeatureSettings(_Section):
+    window_months: int = Field(3, ge=1, le=24)
+    large_debit_threshold: float = Field(100.0, gt=0)
+
+
+class DemoSettings(_Section):
+    institution: str = "Corrandale Mutual Savings"
+    customers: int = Field(2_000, ge=50)
+    months: int = Field(3, ge=1, le=24)
+    end_period: str = "2026-10"
+    seed: int = 7
+    file_format: str = Field("csv", pattern="^(csv|parquet)$")
+
+
+class Settings(BaseSettings):
+    """Everything the pipeline reads from configuration."""
+
+    model_config = SettingsConfigDict(
+        env_prefix="LEDGERBAND_",
+        env_nested_delimiter="__",
+        extra="forbid",
+        frozen=True,
+    )
+
+    home: Path = Field(default_factory=_default_home)
+    landing_dir: Path | None = None
+    """Where extracts arrive (`<landing_dir>/<period>/`, `<landing_dir>/customers.csv`); default `<home>/landing`."""
+    owners: tuple[str, ...] = ("data-engineering@corrandale.example",)
+    quality: QualitySettings = QualitySettings()
+    accuracy: AccuracySettings = AccuracySettings()
+    train: TrainSettings = TrainSettings()
+    bands: BandSettings = BandSettings()
+    features: FeatureSettings = FeatureSettings()
+    demo: DemoSettings = DemoSettings()
+
+    @classmethod
+    def settings_customise_sources(
+        cls,
+        settings_cls: type[BaseSettings],
+        init_settings: PydanticBaseSettingsSource,
+        env_settings: PydanticBaseSettingsSource,
+        dotenv_settings: PydanticBaseSettingsSource,
+        file_secret_settings: PydanticBaseSettingsSource,
+    ) -> tuple[PydanticBaseSettingsSource, ...]:
+        # LEDGERBAND_CONFIG and LEDGERBAND_HOME steer where things are; they are not settings keys.
+        return (init_settings, _FilteredEnv(settings_cls), TomlConfigSettingsSource(settings_cls, _config_file()))
+
+    # Paths derived from home: one place that says where every piece of state lives.
+    @property
+    def warehouse_path(self) -> Path:
+        return self.home / "warehouse.duckdb"
+
+    @property
+    def published_path(self) -> Path:
+        return self.home / "published" / "ledgerband_published.duckdb"
+
+    @property
+    def reports_dir(self) -> Path:
+        return self.home / "reports"
+
+    @property
+    def models_dir(self) -> Path:
+        return self.home / "models"
+
+    @property
+    def landing(self) -> Path:
+        return self.landing_dir or self.home / "landing"
+
+    @property
+    def demo_landing_dir(self) -> Path:
+        return self.home / "demo" / "landing"
+
+    @property
+    def demo_answers_path(self) -> Path:
+        """The demo's true incomes: beside, never inside, the landing folder the pipeline reads."""
+        return self.home / "demo" / "answers" / "true_income.csv"
+
+    @property
+    def prefect_home(self) -> Path:
+        return self.home / "prefect"
+
+    @property
+    def alerts_log(self) -> Path:
+        return self.home / "alerts" / "alerts.jsonl"
+
+
+class _FilteredEnv(PydanticBaseSettingsSource):
+    """Environment source that refuses misspelt `LEDGERBAND_*` variables instead of ignoring them."""
+
+    _locators = {"config"}  # LEDGERBAND_CONFIG says where the TOML file is; it is not a settings key
+
+    def __init__(self, settings_cls: type[BaseSettings]):
+        from pydantic_settings import EnvSettingsSource
+
+        super().__init__(settings_cls)
+        self._inner = EnvSettingsSource(settings_cls)
+
+    def get_field_value(self, field, field_name):  # pragma: no cover - __call__ is used instead
+        return None, field_name, False
+
+    def __call__(self) -> dict:
+        known = set(self.settings_cls.model_fields) | self._locators
+        for name in os.environ:
+            if name.upper().startswith("LEDGERBAND_"):
+                top = name[len("LEDGERBAND_") :].split("__", 1)[0].lower()
+                if top not in known:
+                    raise ValueError(
+                        f"environment variable {name} is not a ledgerband setting "
+                        f"(known top-level keys: {', '.join(sorted(known))})"
+                    )
+        return self._inner()
+
+
+@lru_cache(maxsize=1)
+def get_settings() -> Settings:
+    """The process-wide settings (cached; tests call `get_settings.cache_clear()`)."""
+    return Settings()

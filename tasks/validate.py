@@ -1,0 +1,269 @@
+"""Validate: run the expectation suites in `expectations/` with Great Expectations, in bounded chunks.
+
+The suite file is the one place a rule is declared. How a rule is evaluated follows from its type:
+- `expect_table_*` rules look at the file's header and stop the run when they fail;
+- `expect_column_values_to_be_unique` needs every record at once, so it runs on just that column of
+  the whole extract (two narrow columns stay small even at tens of millions of records);
+- every other `expect_column_values_*` rule runs chunk by chunk (`quality.chunk_rows` records), and
+  the records that break it are quarantined with the rule's name.
+A rule GX cannot evaluate is an error, never a pass (GX reports such failures only in its result).
+"""
+
+from __future__ import annotations
+
+import copy
+import json
+import logging
+from collections import defaultdict
+from dataclasses import asdict, dataclass, field
+from datetime import datetime
+from functools import lru_cache
+from pathlib import Path
+from typing import Any
+
+import duckdb
+import pandas as pd
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
+from tasks.errors import GateStopped, LedgerbandError, ValidationEngineError
+from tasks.settings import PROJECT_ROOT, Settings
+from tasks.warehouse import Period, open_warehouse
+
+EXPECTATIONS_DIR = PROJECT_ROOT / "expectations"
+WHOLE_COLUMN_TYPES = frozenset({"expect_column_values_to_be_unique"})
+ROW_TYPE_PREFIX = "expect_column_values_to_"
+RESULT_FORMAT = {"result_format": "COMPLETE", "unexpected_index_column_names": ["source_line"]}
+_EXAMPLES_KEPT = 5
+
+
+@dataclass(frozen=True)
+class SuiteParts:
+    """A suite split by how its rules are evaluated (each part is a list of expectation configs)."""
+
+    name: str
+    table: list[dict]
+    whole_column: list[dict]
+    row: list[dict]
+
+    @property
+    def rule_names(self) -> list[str]:
+        return [e["meta"]["rule"] for e in self.table + self.whole_column + self.row]
+
+
+def read_suite(name: str, directory: Path = EXPECTATIONS_DIR) -> SuiteParts:
+    """Read `expectations/<name>.json` and sort its rules by how they are evaluated."""
+    path = directory / f"{name}.json"
+    try:
+        data = json.loads(path.read_text())
+    except (OSError, json.JSONDecodeError) as exc:
+        raise LedgerbandError(f"expectation suite {path}: cannot be read ({exc})") from exc
+    parts: dict[str, list[dict]] = {"table": [], "whole_column": [], "row": []}
+    seen: set[str] = set()
+    for i, exp in enumerate(data.get("expectations", [])):
+        rule = (exp.get("meta") or {}).get("rule")
+        if not rule:
+            raise LedgerbandError(f"expectation suite {path}: expectation #{i + 1} ({exp.get('type')}) has no meta.rule")
+        if rule in seen:
+            raise LedgerbandError(f"expectation suite {path}: rule name {rule!r} is used twice")
+        seen.add(rule)
+        kind = exp.get("type", "")
+        if kind.startswith("expect_table_"):
+            parts["table"].append(exp)
+        elif kind in WHOLE_COLUMN_TYPES:
+            parts["whole_column"].append(exp)
+        elif kind.startswith(ROW_TYPE_PREFIX):
+            parts["row"].append(exp)
+        else:
+            raise LedgerbandError(
+                f"expectation suite {path}: rule {rule!r} has type {kind!r}, which this pipeline cannot yet evaluate "
+                "in chunks (supported: expect_table_*, expect_column_values_*)"
+            )
+    return SuiteParts(name=name, **parts)
+
+
+@lru_cache(maxsize=1)
+def _gx():
+    """One ephemeral GX context and pandas asset per process (GX imports in ~5 s: import lazily)."""
+    import great_expectations as gx
+
+    from great_expectations.data_context.types.base import ProgressBarsConfig
+
+    logging.getLogger("great_expectations").setLevel(logging.WARNING)
+    context = gx.get_context(mode="ephemeral")
+    context.variables.progress_bars = ProgressBarsConfig(globally=False)
+    asset = context.data_sources.add_pandas("ledgerband_frames").add_dataframe_asset("frame")
+    return gx, context, asset.add_batch_definition_whole_dataframe("whole_frame")
+
+
+def _run(suite_name: str, expectations: list[dict], frame: pd.DataFrame, params: dict | None = None) -> list[Any]:
+    """Validate `frame` against `expectations`; returns GX results. Raises if any rule could not be evaluated."""
+    if not expectations:
+        return []
+    gx, _, batch_definition = _gx()
+    suite = gx.ExpectationSuite(name=suite_name, expectations=copy.deepcopy(expectations))
+    if len(suite.expectations) != len(expectations):  # GX silently drops unknown types
+        raise ValidationEngineError(
+            f"suite {suite_name}: GX accepted {len(suite.expectations)} of {len(expectations)} expectations; "
+            "check the expectation types"
+        )
+    batch = batch_definition.get_batch(batch_parameters={"dataframe": frame})
+    result = batch.validate(suite, expectation_parameters=params or {}, result_format=RESULT_FORMAT)
+    for r in result.results:
+        info = r.exception_info or {}
+        raised = info.get("raised_exception") if "raised_exception" in info else any(
+            isinstance(v, dict) and v.get("raised_exception") for v in info.values()
+        )
+        if raised:
+            message = info.get("exception_message") or next(
+                (v.get("exception_message") for v in info.values() if isinstance(v, dict)), "unknown error"
+            )
+            raise ValidationEngineError(
+                f"suite {suite_name}: rule {r.expectation_config.meta.get('rule')} could not be evaluated: {message}"
+            )
+    return list(result.results)
+
+
+def check_table_columns(suite_name: str, columns: list[str], source: str) -> None:
+    """Run the suite's table-level rules on a file's header. Raises GateStopped naming the file and rule."""
+    parts = read_suite(suite_name)
+    frame = pd.DataFrame({c: pd.Series([], dtype="str") for c in columns})
+    for r in _run(f"{suite_name}.table", parts.table, frame):
+        if not r.success:
+            details = (r.result or {}).get("details", {}).get("mismatched") or {"observed": r.result.get("observed_value")}
+            raise GateStopped(
+                "quality", f"{source}: line 1 (header) breaks rule {r.expectation_config.meta['rule']}: {details}"
+            )
+
+
+@dataclass
+class ValidationSummary:
+    load_id: str
+    source_file: str
+    rows_in_file: int
+    rows_quarantined: int
+    rule_counts: dict[str, int] = field(default_factory=dict)
+    examples: list[str] = field(default_factory=list)
+
+    @property
+    def quarantined_share(self) -> float:
+        return self.rows_quarantined / self.rows_in_file if self.rows_in_file else 0.0
+
+    def to_dict(self) -> dict:
+        return {**asdict(self), "quarantined_share": self.quarantined_share}
+
+
+_PARSED_QUERY = """
+select
+    source_line,
+    {columns},
+    try_cast(amount as decimal(18, 2))::double as amount_value,
+    try_strptime(booking_date, '%Y-%m-%d')::date as booking_date_value
+from raw.ledger_lines
+where load_id = $load_id
+order by source_line
+"""
+
+
+def validate_load(con: duckdb.DuckDBPyConnection, load_id: str, settings: Settings, suite_name: str = "ledger_lines") -> ValidationSummary:
+    """Run the ledger suite on one load and quarantine the records that break a row-level rule."""
+    from tasks.demo_data import LEDGER_COLUMNS
+
+    row = con.execute(
+        "select source_file, period, rows_in_file, rows_quarantined from ops.loads where load_id = ?", [load_id]
+    ).fetchall()
+    if not row:
+        raise LedgerbandError(f"no load {load_id} in ops.loads")
+    source_file, period_text, rows_in_file, malformed = row[0]
+    period = Period.parse(period_text)
+    parts = read_suite(suite_name)
+    params = {"period_start": period.start, "period_end": period.end}
+    failures: dict[int, dict[str, str]] = defaultdict(dict)  # line -> rule -> offending value
+
+    def collect(results: list[Any]) -> None:
+        for r in results:
+            if r.success:
+                continue
+            rule = r.expectation_config.meta["rule"]
+            column = r.expectation_config.kwargs.get("column")
+            for item in r.result.get("unexpected_index_list") or []:
+                failures[int(item["source_line"])][rule] = f"{column}={item.get(column)!r}"
+
+    query = _PARSED_QUERY.format(columns=", ".join(LEDGER_COLUMNS))
+    reader = con.sql(query, params={"load_id": load_id}).to_arrow_reader(settings.quality.chunk_rows)
+    for batch in reader:
+        collect(_run(f"{suite_name}.row", parts.row, batch.to_pandas(), params))
+    for exp in parts.whole_column:
+        column = exp["kwargs"]["column"]
+        frame = con.sql(
+            f'select source_line, "{column}" from raw.ledger_lines where load_id = $load_id', params={"load_id": load_id}
+        ).to_arrow_table().to_pandas()
+        collect(_run(f"{suite_name}.whole", [exp], frame))
+
+    order = {rule: i for i, rule in enumerate(parts.rule_names)}
+    now = datetime.now()
+    quarantine = pd.DataFrame(
+        [
+            {
+                "load_id": load_id,
+                "source_file": source_file,
+                "source_line": line,
+                "failed_rules": sorted(rules, key=order.__getitem__),
+                "reason": f"line {line}: " + "; ".join(
+                    f"{rule} ({rules[rule]})" for rule in sorted(rules, key=order.__getitem__)
+                ),
+                "raw_record": None,
+                "quarantined_at": now,
+            }
+            for line, rules in sorted(failures.items())
+        ],
+        columns=["load_id", "source_file", "source_line", "failed_rules", "reason", "raw_record", "quarantined_at"],
+    )
+    con.execute("begin transaction")
+    try:
+        # Rerunning validation on the same load replaces its rule findings (malformed records stay).
+        con.execute(
+            "delete from quarantine.ledger_lines where load_id = ? and failed_rules <> ['record_field_count']",
+            [load_id],
+        )
+        if len(quarantine):
+            con.register("quarantine_rows", quarantine)
+            con.execute(
+                "insert into quarantine.ledger_lines select load_id, source_file, source_line, "
+                "failed_rules::varchar[], reason, raw_record::varchar, quarantined_at from quarantine_rows"
+            )
+            con.unregister("quarantine_rows")
+        total_quarantined = con.execute(
+            "select count(*)::bigint from quarantine.ledger_lines where load_id = ?", [load_id]
+        ).fetchall()[0][0]
+        con.execute("update ops.loads set rows_quarantined = ? where load_id = ?", [total_quarantined, load_id])
+        con.execute("commit")
+    except Exception:
+        con.execute("rollback")
+        raise
+
+    counts: dict[str, int] = defaultdict(int)
+    for rules in failures.values():
+        for rule in rules:
+            counts[rule] += 1
+    if malformed:
+        counts["record_field_count"] += int(malformed)
+    examples = con.execute(
+        "select reason from quarantine.ledger_lines where load_id = ? order by source_line limit ?",
+        [load_id, _EXAMPLES_KEPT],
+    ).fetchall()
+    return ValidationSummary(
+        load_id=load_id,
+        source_file=source_file,
+        rows_in_file=int(rows_in_file),
+        rows_quarantined=int(total_quarantined),
+        rule_counts=dict(sorted(counts.items(), key=lambda kv: -kv[1])),
+        examples=[e[0] for e in examples],
+    )
+
+
+@task(name="validate-extract", cache_policy=NO_CACHE)
+def validate_load_task(warehouse: Path, load_id: str, settings: Settings) -> dict:
+    """Run the ledger suite on one load (never retried: validation is deterministic)."""
+    with open_warehouse(warehouse) as con:
+        return validate_load(con, load_id, settings).to_dict()

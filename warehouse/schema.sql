@@ -1,0 +1,180 @@
+-- ledgerband warehouse schema. Idempotent: applied at the start of every run.
+-- Layers are schemas: raw -> staging -> features -> published, plus quarantine, ml, ops and ref.
+-- Tables built wholesale by a layer's SQL file (staging.*, features.*) are created by that file.
+
+create schema if not exists raw;
+create schema if not exists staging;
+create schema if not exists quarantine;
+create schema if not exists features;
+create schema if not exists ml;
+create schema if not exists published;
+create schema if not exists ops;
+create schema if not exists ref;
+
+-- One row per file the pipeline was handed (ledger extract or customer reference file).
+create table if not exists ops.loads (
+    load_id varchar primary key,
+    dataset varchar not null,              -- 'ledger' or 'customers'
+    period varchar,                        -- YYYY-MM for ledger extracts
+    source_file varchar not null,
+    sha256 varchar not null,
+    manifest_row_count bigint,
+    rows_in_file bigint,                   -- data records read from the file (loaded + malformed)
+    rows_loaded bigint,                    -- records that reached raw.*
+    rows_quarantined bigint,               -- malformed records + records breaking a row-level rule
+    credit_total decimal(18, 2),
+    debit_total decimal(18, 2),
+    status varchar not null,               -- 'loaded' -> 'accepted' | 'rejected'
+    reason varchar,
+    run_id varchar,
+    loaded_at timestamp not null,
+    decided_at timestamp
+);
+
+-- Ledger records exactly as received (text), with lineage. Grain: one row per data record of a file.
+create table if not exists raw.ledger_lines (
+    load_id varchar not null,
+    source_file varchar not null,
+    source_line bigint not null,           -- line number in the file, header = line 1
+    txn_id varchar,
+    account_id varchar,
+    customer_id varchar,
+    booking_date varchar,
+    amount varchar,
+    direction varchar,
+    currency varchar,
+    balance_after varchar,
+    bank_txn_code varchar,
+    purpose_code varchar,
+    counterparty_id varchar,
+    merchant_category varchar,
+    merchant_region varchar
+);
+
+create table if not exists raw.customers (
+    load_id varchar not null,
+    source_file varchar not null,
+    source_line bigint not null,
+    customer_id varchar,
+    birth_date varchar,
+    sex varchar,
+    home_region varchar,
+    opened_date varchar
+);
+
+-- Records kept out of staging, each with the rules it broke. Grain: one row per (load_id, source_line).
+-- Rule failures keep their fields in raw.ledger_lines (same load_id, source_line); records that could
+-- not be split into fields at all keep their text in raw_record.
+create table if not exists quarantine.ledger_lines (
+    load_id varchar not null,
+    source_file varchar not null,
+    source_line bigint not null,
+    failed_rules varchar[] not null,
+    reason varchar not null,
+    raw_record varchar,
+    quarantined_at timestamp not null
+);
+
+-- Pay frequencies and how many pay periods a year each means. Gap bounds are inclusive, in days, and
+-- allow for pay dates moved to the previous business day (weekends, holidays). A median of whole-day
+-- gaps is a whole or half number, so the ranges leave no such value unclassified between 26 and 35.
+-- Periods per year: weekly 365.25/7, fortnightly 365.25/14, four-weekly 365.25/28, monthly 12.
+create or replace table ref.pay_frequencies as
+select * from (values
+    ('weekly', 5.0, 9.0, 365.25 / 7),
+    ('fortnightly', 12.0, 16.0, 365.25 / 14),
+    ('four_weekly', 26.0, 28.5, 365.25 / 28),
+    ('monthly', 29.0, 35.0, 12.0)
+) as t (frequency, min_gap_days, max_gap_days, periods_per_year);
+
+create table if not exists ml.model_runs (
+    run_id varchar not null,
+    period varchar not null,
+    candidate varchar not null,
+    rmse_mean double, rmse_std double, mae_mean double, mae_std double,
+    n_labelled bigint, n_folds bigint,
+    is_champion boolean not null,
+    created_at timestamp not null
+);
+
+create table if not exists ml.cv_scores (
+    run_id varchar not null,
+    candidate varchar not null,
+    split_index bigint not null,
+    rmse double not null,
+    mae double not null
+);
+
+-- Grain: one row per (run_id, customer_id): the champion's estimate for every customer.
+create table if not exists ml.predictions (
+    run_id varchar not null,
+    customer_id varchar not null,
+    estimate double not null,
+    oof_estimate double,                   -- out-of-fold estimate for labelled customers (band metrics)
+    annual_salary double                   -- observed label, null when the salary is not paid here
+);
+
+-- One row per run and gate: the decision and every figure behind it (JSON).
+create table if not exists published.decisions (
+    run_id varchar not null,
+    period varchar not null,
+    gate varchar not null,
+    decision varchar not null,             -- 'pass' | 'stop'
+    reason varchar not null,
+    figures json not null,
+    thresholds json not null,
+    decided_at timestamp not null
+);
+
+create table if not exists published.snapshots (
+    run_id varchar primary key,
+    period varchar not null,
+    model_version varchar not null,
+    band_edges json not null,
+    customer_count bigint not null,
+    is_current boolean not null,
+    published_at timestamp not null
+);
+
+create table if not exists published.income_bands_history (
+    run_id varchar not null,
+    period varchar not null,
+    customer_id varchar not null,
+    income_band varchar not null,
+    band_source varchar not null,          -- 'observed_salary' | 'model_estimate'
+    annual_income_estimate decimal(18, 2) not null,
+    model_version varchar not null,
+    published_at timestamp not null
+);
+
+create table if not exists published.band_summary_history (
+    run_id varchar not null,
+    period varchar not null,
+    income_band varchar not null,
+    home_region varchar not null,
+    band_source varchar not null,
+    customer_count bigint not null
+);
+
+-- Readers see only the current snapshot; publishing moves `is_current` inside one transaction.
+create or replace view published.income_bands as
+select h.* exclude (published_at), h.published_at
+from published.income_bands_history as h
+inner join published.snapshots as s on s.run_id = h.run_id and s.is_current;
+
+create or replace view published.band_summary as
+select h.*
+from published.band_summary_history as h
+inner join published.snapshots as s on s.run_id = h.run_id and s.is_current;
+
+-- One row per run of the monthly flow.
+create table if not exists ops.runs (
+    run_id varchar primary key,
+    period varchar not null,
+    started_at timestamp not null,
+    finished_at timestamp,
+    status varchar not null,               -- running | published | withheld | stopped | failed
+    error varchar,
+    stages json,                           -- [{stage, status, seconds, detail}]
+    gate_figures json
+);

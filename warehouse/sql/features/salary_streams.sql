@@ -1,0 +1,85 @@
+-- features.salary_streams
+-- Grain: one row per (customer_id, payer_id) stream of payroll credits inside the window.
+-- Key: customer_id, payer_id.
+-- Reads: staging.transactions, ref.pay_frequencies.
+-- Parameters: $window_start, $window_end (dates, inclusive).
+-- Pay frequency comes from the median gap in days between consecutive pay dates (robust to one pay
+-- date moved by a weekend or holiday). The pay amount is the median of the latest three payments, so a
+-- one-off bonus does not set it and a pay rise takes over after two payments. A stream is current when
+-- its last payment is no older than its own longest expected gap (plus a week) at the window's end.
+
+with
+
+transactions as (
+    select *
+    from staging.transactions
+    where booking_date between $window_start and $window_end
+),
+
+payroll_credits as (
+    select
+        customer_id,
+        coalesce(counterparty_id, 'payer not given') as payer_id,
+        booking_date,
+        amount
+    from transactions
+    where is_payroll_coded
+),
+
+sequenced as (
+    select
+        *,
+        booking_date - lag(booking_date) over (
+            partition by customer_id, payer_id order by booking_date
+        ) as gap_days,
+        row_number() over (
+            partition by customer_id, payer_id order by booking_date desc, amount desc
+        ) as recency_rank
+    from payroll_credits
+),
+
+streams as (
+    select
+        customer_id,
+        payer_id,
+        count(*)::bigint as payment_count,
+        min(booking_date) as first_pay_date,
+        max(booking_date) as last_pay_date,
+        median(gap_days) as median_gap_days,
+        median(amount) filter (where recency_rank <= 3) as pay_amount,
+        sum(amount) as total_paid
+    from sequenced
+    group by all
+),
+
+classified as (
+    select
+        streams.*,
+        coalesce(freq.frequency, 'irregular') as pay_frequency,
+        freq.periods_per_year,
+        freq.max_gap_days
+    from streams
+    left join ref.pay_frequencies as freq
+        on streams.median_gap_days between freq.min_gap_days and freq.max_gap_days
+),
+
+final as (
+    select
+        customer_id,
+        payer_id,
+        payment_count,
+        first_pay_date,
+        last_pay_date,
+        median_gap_days,
+        pay_frequency,
+        periods_per_year,
+        pay_amount::double as pay_amount,
+        total_paid::double as total_paid,
+        coalesce($window_end::date - last_pay_date <= max_gap_days + 7, false) as is_current,
+        case
+            when periods_per_year is not null then round(pay_amount::double * periods_per_year, 2)
+        end as annual_salary
+    from classified
+)
+
+select * from final
