@@ -1,0 +1,40 @@
+# ledgerband — every target sets up (or refreshes) the local virtual environment from pyproject.toml first.
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed-$(shell cat pyproject.toml | sha256sum | cut -c1-16)
+
+.DEFAULT_GOAL := help
+.PHONY: help venv demo test test-all bench lint format clean
+
+help: ## list the targets
+	@grep -E '^[a-z-]+:.*## ' $(MAKEFILE_LIST) | awk -F':.*## ' '{printf "  make %-10s %s\n", $$1, $$2}'
+
+$(STAMP): pyproject.toml
+	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	@echo "installing ledgerband and its pinned dependencies into $(VENV) (log: $(VENV)/pip-install.log) …"
+	@$(BIN)/python -m pip install --disable-pip-version-check -e '.[dev]' > $(VENV)/pip-install.log 2>&1 \
+		|| { tail -40 $(VENV)/pip-install.log; exit 1; }
+	@rm -f $(VENV)/.installed-*
+	@touch $@
+
+venv: $(STAMP) ## create or refresh .venv from pyproject.toml
+
+demo: venv ## install, generate demo extracts, run the monthly flow, write the report
+	$(BIN)/ledgerband demo
+
+test: venv ## run the default test suite (unit, sql, reference, integration; no benchmarks)
+	$(BIN)/python -m pytest
+
+bench: venv ## benchmark the monthly flow on a larger synthetic bank (BENCH_CUSTOMERS=20000 by default)
+	$(BIN)/python -m pytest tests/bench -m bench -s -p no:cacheprovider
+
+lint: venv ## ruff (style, imports, bugbear)
+	$(BIN)/ruff check flows tasks tests
+
+format: venv ## format and sort imports
+	$(BIN)/ruff check --fix --select I flows tasks tests
+	$(BIN)/ruff format flows tasks tests
+
+clean: ## remove the local state folder (warehouse, published copy, reports, demo files)
+	rm -rf .ledgerband
