@@ -45,8 +45,9 @@ typed as (
         counterparty_id,
         merchant_category,
         merchant_region,
-        direction = 'CRDT'
-            and (purpose_code = 'SALA' or split_part(bank_txn_code, '/', 3) = 'SALA') as is_payroll_coded,
+        coalesce(
+            direction = 'CRDT' and (purpose_code = 'SALA' or split_part(bank_txn_code, '/', 3) = 'SALA'), false
+        ) as is_payroll_coded,
         load_id,
         source_file,
         source_line,

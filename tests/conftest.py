@@ -1,0 +1,48 @@
+"""Test set-up: a throw-away state folder for the whole session, set before anything imports Prefect."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+_SESSION_HOME = Path(tempfile.mkdtemp(prefix="ledgerband-test-"))
+os.environ["LEDGERBAND_HOME"] = str(_SESSION_HOME)
+os.environ["PREFECT_HOME"] = str(_SESSION_HOME / "prefect")
+os.environ.setdefault("PREFECT_LOGGING_LEVEL", "WARNING")
+# Tests read the defaults in code, not an operator's ledgerband.toml or environment.
+os.environ["LEDGERBAND_CONFIG"] = str(_SESSION_HOME / "no-such-ledgerband.toml")
+for _name in list(os.environ):
+    if _name.startswith("LEDGERBAND_") and _name not in ("LEDGERBAND_HOME", "LEDGERBAND_CONFIG"):
+        del os.environ[_name]
+
+import duckdb  # noqa: E402
+import pytest  # noqa: E402
+
+import tasks  # noqa: E402,F401
+from tasks.settings import Settings, get_settings  # noqa: E402
+from tasks.warehouse import apply_schema  # noqa: E402
+
+FIXTURES = Path(__file__).parent / "fixtures"
+
+
+@pytest.fixture
+def settings(tmp_path: Path) -> Settings:
+    """Default settings with the state folder in this test's tmp_path."""
+    return Settings(home=tmp_path / "state")
+
+
+@pytest.fixture
+def con() -> duckdb.DuckDBPyConnection:
+    """An in-memory warehouse with the full schema."""
+    c = duckdb.connect()
+    apply_schema(c)
+    yield c
+    c.close()
+
+
+@pytest.fixture(autouse=True)
+def _fresh_settings_cache():
+    get_settings.cache_clear()
+    yield
+    get_settings.cache_clear()

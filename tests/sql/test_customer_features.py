@@ -1,0 +1,73 @@
+"""warehouse/sql/features/customer.sql on hand-made ledgers."""
+
+from datetime import date
+
+import pytest
+from dateutil.relativedelta import relativedelta
+
+from tasks.warehouse import run_sql_file
+from tests.sql.sqlkit import WINDOW
+
+
+def _features(con):
+    run_sql_file(con, "features", "customer", WINDOW)
+    cur = con.execute("select * from features.customer order by customer_id")
+    names = [d[0] for d in cur.description]
+    return {r[0]: dict(zip(names, r, strict=True)) for r in cur.fetchall()}
+
+
+def test_behaviour_features_from_a_small_ledger(con, ledger):
+    ledger.add("C1", date(2026, 8, 3), 40.0, merchant_region="North Reach", balance_after=900.0)
+    ledger.add("C1", date(2026, 8, 3), 150.0, merchant_region="South Reach", balance_after=750.0)
+    ledger.add("C1", date(2026, 9, 10), 100.0, merchant_region="South Reach", balance_after=650.0)  # not > 100
+    ledger.add("C1", date(2026, 10, 1), 60.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT", balance_after=710.0)
+    ledger.pay("C1", [date(2026, 8, 28), date(2026, 9, 28)], 3000.0, balance_after=3710.0)  # excluded
+    ledger.load()
+    f = _features(con)["C1"]
+    assert f["txn_count"] == 4
+    assert f["txn_per_week"] == pytest.approx(4 / (92 / 7))  # 92 days from 1 Aug to 31 Oct
+    assert f["days_with_txn"] == 3
+    assert f["largest_debit"] == 150.0
+    assert f["count_large_debits"] == 1
+    assert f["total_debit_amount"] == 290.0
+    assert f["mean_txn_amount"] == pytest.approx((40 + 150 + 100 + 60) / 4)
+    assert f["median_balance"] == pytest.approx((710 + 750) / 2)  # median of 650, 710, 750, 900
+    assert f["top_merchant_region"] == "South Reach"
+
+
+def test_payroll_credits_never_reach_the_features(con, ledger):
+    """The label must not leak: a customer's features are the same with or without their salary."""
+    ledger.add("C1", date(2026, 8, 3), 40.0)
+    ledger.pay("C2", [date(2026, 8, 28)], 3000.0)
+    ledger.add("C2", date(2026, 8, 3), 40.0)
+    ledger.load()
+    f = _features(con)
+    keys = ["txn_count", "mean_txn_amount", "largest_debit", "total_debit_amount", "days_with_txn"]
+    assert [f["C1"][k] for k in keys] == [f["C2"][k] for k in keys]
+
+
+def test_merchant_region_tie_goes_to_the_alphabetically_first(con, ledger):
+    ledger.add("C1", date(2026, 8, 3), 10.0, merchant_region="South Reach")
+    ledger.add("C1", date(2026, 8, 4), 10.0, merchant_region="North Reach")
+    ledger.load()
+    assert _features(con)["C1"]["top_merchant_region"] == "North Reach"
+
+
+def test_customer_without_transactions_gets_zero_counts(con, ledger):
+    ledger.add("C1", date(2026, 8, 3), 10.0)
+    ledger.load(customers=[("C1", "1980-01-01", "North Reach"), ("C9", "1990-05-05", "South Reach")])
+    f = _features(con)["C9"]
+    assert (f["txn_count"], f["count_large_debits"], f["top_merchant_region"]) == (0, 0, "none")
+    assert f["largest_debit"] is None
+
+
+@pytest.mark.parametrize(
+    "birth",
+    ["1980-10-31", "1980-11-01", "2000-02-29", "1966-01-01"],  # birthday on, a day after the window end, leap day, plain
+)
+def test_age_at_window_end_matches_dateutil(con, ledger, birth):
+    # Reference: dateutil.relativedelta gives completed years between two dates.
+    ledger.add("C1", date(2026, 8, 3), 10.0)
+    ledger.load(customers=[("C1", birth, "North Reach")])
+    expected = relativedelta(date(2026, 10, 31), date.fromisoformat(birth)).years
+    assert _features(con)["C1"]["age_years"] == expected

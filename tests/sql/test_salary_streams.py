@@ -1,0 +1,115 @@
+"""warehouse/sql/features/salary_streams.sql and customer_salary.sql on hand-made payroll."""
+
+from datetime import date
+
+import pytest
+
+from tasks.warehouse import run_sql_file
+
+from tests.sql.sqlkit import WINDOW, every
+
+
+def _build(con):
+    run_sql_file(con, "features", "salary_streams", WINDOW)
+    run_sql_file(con, "features", "customer_salary", WINDOW)
+
+
+def _stream(con, customer_id):
+    return con.execute(
+        "select pay_frequency, pay_amount, annual_salary, is_current from features.salary_streams where customer_id = ?",
+        [customer_id],
+    ).fetchall()
+
+
+# Pay periods per year are a fact of the trade: a 365.25-day average year holds 365.25/7 weeks, so
+# weekly pay is annualised x 52.18 (not 52), fortnightly x 26.09, four-weekly x 13.04, monthly x 12.
+@pytest.mark.parametrize(
+    "days, frequency, per_year",
+    [(7, "weekly", 365.25 / 7), (14, "fortnightly", 365.25 / 14), (28, "four_weekly", 365.25 / 28)],
+)
+def test_regular_gaps_are_classified_and_annualised(con, ledger, days, frequency, per_year):
+    ledger.pay("C1", every(date(2026, 8, 7), days, 90 // days), 1000.0)  # Fridays
+    ledger.load()
+    _build(con)
+    [(freq, amount, annual, current)] = _stream(con, "C1")
+    assert (freq, amount, current) == (frequency, 1000.0, True)
+    assert annual == pytest.approx(1000.0 * per_year, abs=0.01)
+
+
+def test_monthly_pay_moved_off_weekends_is_still_monthly(con, ledger):
+    # Nominal pay day 31: 2026-08-31 Mon, 2026-09-30 Wed, 2026-10-31 is a Saturday -> paid Friday 30th.
+    ledger.pay("C1", [date(2026, 8, 31), date(2026, 9, 30), date(2026, 10, 30)], 3200.0)
+    ledger.load()
+    _build(con)
+    [(freq, _, annual, _)] = _stream(con, "C1")
+    assert freq == "monthly" and annual == pytest.approx(38_400.0)
+
+
+def test_weekend_shift_in_fortnightly_pay_keeps_the_frequency(con, ledger):
+    dates = every(date(2026, 8, 7), 14, 6)
+    dates[2] = dates[2].replace(day=dates[2].day - 1)  # one payday brought forward a day (holiday)
+    ledger.pay("C1", dates, 800.0)
+    ledger.load()
+    _build(con)
+    assert _stream(con, "C1")[0][0] == "fortnightly"
+
+
+def test_a_one_off_bonus_does_not_set_the_pay_amount(con, ledger):
+    ledger.pay("C1", [date(2026, 8, 28), date(2026, 9, 28)], 2000.0)
+    ledger.pay("C1", [date(2026, 10, 28)], 2000.0)
+    ledger.pay("C1", [date(2026, 10, 28)], 5000.0, txn_id="BONUS")  # same payer, same day
+    ledger.load()
+    _build(con)
+    [(freq, amount, annual, _)] = _stream(con, "C1")
+    # Median of the latest three payments (2000, 5000, 2000) is 2000.
+    assert amount == 2000.0 and annual == pytest.approx(24_000.0)
+    assert freq == "monthly"
+
+
+def test_a_pay_rise_takes_over_after_two_payments(con, ledger):
+    ledger.pay("C1", every(date(2026, 8, 7), 14, 3), 1000.0)
+    ledger.pay("C1", every(date(2026, 9, 18), 14, 3), 1100.0)
+    ledger.load()
+    _build(con)
+    assert _stream(con, "C1")[0][1] == 1100.0
+
+
+def test_two_employers_add_up(con, ledger):
+    ledger.pay("C1", [date(2026, 8, 25), date(2026, 9, 25), date(2026, 10, 23)], 2500.0, payer="EMP-A")
+    ledger.pay("C1", every(date(2026, 8, 7), 7, 12), 100.0, payer="EMP-B")
+    ledger.load()
+    _build(con)
+    salary = con.execute("select annual_salary, stream_count from features.customer_salary").fetchall()
+    assert salary == [(pytest.approx(2500 * 12 + 100 * 365.25 / 7, abs=0.01), 2)]
+
+
+def test_single_payment_gives_no_label(con, ledger):
+    # One payment has no gap: frequency unknown, so the customer is left for the model to estimate.
+    ledger.pay("C1", [date(2026, 10, 15)], 1800.0)
+    ledger.load()
+    _build(con)
+    assert _stream(con, "C1")[0][0] == "irregular"
+    assert con.execute("select count(*) from features.customer_salary").fetchall()[0][0] == 0
+
+
+def test_a_stream_that_stopped_is_not_current(con, ledger):
+    ledger.pay("C1", every(date(2026, 8, 7), 7, 4), 500.0)  # weekly pay ended late August
+    ledger.load()
+    _build(con)
+    assert _stream(con, "C1")[0][3] is False
+    assert con.execute("select count(*) from features.customer_salary").fetchall()[0][0] == 0
+
+
+def test_uncoded_credits_are_not_payroll(con, ledger):
+    for d in [date(2026, 8, 28), date(2026, 9, 28), date(2026, 10, 28)]:
+        ledger.add("C1", d, 2000.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT", counterparty_id="EMP-1")
+    ledger.load()
+    _build(con)
+    assert _stream(con, "C1") == []
+
+
+def test_pay_outside_the_window_is_ignored(con, ledger):
+    ledger.pay("C1", [date(2026, 7, 28), date(2026, 11, 27)], 9999.0)
+    ledger.load()
+    _build(con)
+    assert _stream(con, "C1") == []

@@ -1,0 +1,58 @@
+import numpy as np
+import pytest
+
+from tasks.bands import assign_band_index, band_agreement, band_table
+
+EDGES = (25_000, 40_000, 60_000)
+
+
+@pytest.mark.parametrize(
+    "value, band",
+    [
+        (0.0, 0),
+        (24_999.99, 0),
+        (25_000.0, 1),  # an edge belongs to the band above it: bands are [lower, upper)
+        (39_999.99, 1),
+        (60_000.0, 3),
+        (1e9, 3),  # the top band is open-ended
+    ],
+)
+def test_band_index_is_half_open(value, band):
+    assert assign_band_index([value], EDGES)[0] == band
+
+
+def test_band_table_labels_and_bounds():
+    t = band_table(EDGES, "EUR")
+    assert list(t["income_band"]) == ["B1", "B2", "B3", "B4"]
+    assert t.loc[0, "band_label"] == "under 25,000 EUR"
+    assert t.loc[3, "band_label"] == "60,000 EUR and over"
+    assert np.isnan(t.loc[0, "lower_bound"]) and np.isnan(t.loc[3, "upper_bound"])
+
+
+def test_band_agreement_counts_exact_and_adjacent_bands():
+    y_true = np.array([10_000, 30_000, 50_000, 70_000])
+    y_pred = np.array([12_000, 45_000, 10_000, 65_000])  # same, one up, two down, same
+    assert band_agreement(y_true, y_pred, EDGES) == {"band_accuracy": 0.5, "within_one_band": 0.75}
+
+
+def test_published_band_sql_agrees_with_python_at_every_edge(con):
+    """warehouse/sql/published/income_bands.sql and assign_band_index must draw the same lines."""
+    from datetime import datetime
+
+    from tasks.bands import write_band_table
+    from tasks.publish import _insert_from_file
+
+    write_band_table(con, EDGES, "EUR")
+    values = [0.0, 24_999.99, 25_000.0, 40_000.0, 59_999.99, 60_000.0, 250_000.0]
+    for i, v in enumerate(values):
+        # Odd rows carry an observed salary (which wins over the estimate), even rows only an estimate.
+        observed = v if i % 2 else None
+        con.execute("insert into ml.predictions values ('r1', ?, ?, null, ?)", [f"C{i}", 1.0 if observed else v, observed])
+    _insert_from_file(con, "published.income_bands_history", "income_bands",
+                      {"run_id": "r1", "period": "2026-10", "model_version": "m", "published_at": datetime(2026, 11, 2)})
+    got = con.execute(
+        "select customer_id, income_band, band_source from published.income_bands_history order by customer_id"
+    ).fetchall()
+    expected_index = assign_band_index(values, EDGES)
+    assert [g[1] for g in got] == [f"B{k + 1}" for k in expected_index]
+    assert [g[2] for g in got] == ["model_estimate" if i % 2 == 0 else "observed_salary" for i in range(len(values))]

@@ -1,0 +1,90 @@
+import json
+from pathlib import Path
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+from tasks.demo_data import LEDGER_COLUMNS
+from tasks.errors import ExtractError
+from tasks.ingest import find_manifests, read_manifest, read_records
+
+GOOD = Path(__file__).parents[1] / "fixtures" / "ledger_good"
+
+
+def _manifest(tmp_path: Path, **changes) -> Path:
+    data = json.loads((GOOD / "2026-10" / "ledger-2026-10.manifest.json").read_text())
+    data.update(changes)
+    for key in [k for k, v in changes.items() if v is None]:
+        del data[key]
+    path = tmp_path / "m.manifest.json"
+    path.write_text(json.dumps(data))
+    return path
+
+
+@pytest.mark.parametrize(
+    "changes, message",
+    [
+        ({"row_count": None}, "missing field\\(s\\) row_count"),
+        ({"credit_total": 12.5}, "credit_total must be a decimal string"),  # a float would lose cents
+        ({"debit_total": "1,234.00"}, "debit_total must be a decimal string"),  # thousands separator
+        ({"sha256": "abc"}, "sha256 must be 64 hex digits"),
+        ({"row_count": -1}, "row_count must be a non-negative integer"),
+        ({"file": "../elsewhere.csv"}, "bare file name"),  # a manifest may not point outside its folder
+    ],
+)
+def test_bad_manifest_names_the_file_and_the_field(tmp_path, changes, message):
+    path = _manifest(tmp_path, **changes)
+    with pytest.raises(ExtractError, match=message) as exc:
+        read_manifest(path)
+    assert str(path) in str(exc.value)
+
+
+def test_manifest_in_the_wrong_period_folder_is_refused(tmp_path):
+    folder = tmp_path / "2026-11"
+    folder.mkdir()
+    (folder / "ledger-2026-10.csv").write_text("x")
+    (folder / "ledger-2026-10.manifest.json").write_text(
+        (GOOD / "2026-10" / "ledger-2026-10.manifest.json").read_text()
+    )
+    with pytest.raises(ExtractError, match="says period 2026-10, but it lies in the folder for 2026-11"):
+        find_manifests(tmp_path, "2026-11")
+
+
+def test_missing_period_folder_says_where_it_looked(tmp_path):
+    with pytest.raises(ExtractError, match=str(tmp_path / "2026-09")):
+        find_manifests(tmp_path, "2026-09")
+
+
+def test_csv_records_keep_their_line_numbers_and_malformed_lines_are_returned(tmp_path):
+    path = tmp_path / "x.csv"
+    path.write_text("a,b,c\n1,2,3\n4,5\n6,7,8\n9,10,11,12\n13,,15\n")
+    rec = read_records(path, ("a", "b", "c"))
+    assert rec.table.column("source_line").to_pylist() == [2, 4, 6]
+    assert rec.table.column("a").to_pylist() == ["1", "6", "13"]
+    assert rec.table.column("b").to_pylist()[2] is None  # empty field = null (extract contract)
+    assert [(m[0], m[1]) for m in rec.malformed] == [(3, "4,5"), (5, "9,10,11,12")]
+    assert "has 2 fields, the header has 3" in rec.malformed[0][2]
+
+
+def test_csv_keeps_leading_zeros_and_text_as_received(tmp_path):
+    path = tmp_path / "x.csv"
+    path.write_text("a,b\n0042,001.50\n")
+    rec = read_records(path, ("a", "b"))
+    assert rec.table.column("a").to_pylist() == ["0042"] and rec.table.column("b").to_pylist() == ["001.50"]
+
+
+def test_non_utf8_file_is_refused_with_its_name(tmp_path):
+    path = tmp_path / "latin.csv"
+    path.write_bytes("a,b\nStra\xdfe,1\n".encode("latin-1"))
+    with pytest.raises(ExtractError, match="latin.csv"):
+        read_records(path, ("a", "b"))
+
+
+def test_parquet_records_are_numbered_and_typed_columns_become_text(tmp_path):
+    path = tmp_path / "x.parquet"
+    table = pa.table({"amount": pa.array(["12.50", "3.00"]).cast(pa.decimal128(18, 2)), "txn_id": ["a", "b"]})
+    pq.write_table(table, path)
+    rec = read_records(path, LEDGER_COLUMNS)
+    assert rec.table.column("source_line").to_pylist() == [1, 2]
+    assert rec.table.column("amount").to_pylist() == ["12.50", "3.00"]
