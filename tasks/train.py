@@ -212,6 +212,18 @@ def train_and_predict(
     return summary
 
 
+# Types skops does not trust by default that our candidate pipelines contain: OneHotEncoder keeps its
+# output dtype (numpy.dtype); a decision tree keeps its tree structure. Never pass get_untrusted_types().
+TRUSTED_TYPES = ["numpy.dtype", "sklearn.tree._tree.Tree"]
+
+
+def load_model(path: Path) -> Pipeline:
+    """Load a saved champion with an explicit allow-list of types."""
+    import skops.io as sio
+
+    return sio.load(path, trusted=TRUSTED_TYPES)
+
+
 def _save_model(pipe: Pipeline, folder: Path, card: dict) -> Path:
     """skops file (not pickle) beside a JSON model card."""
     import skops.io as sio

@@ -1,0 +1,157 @@
+"""The whole monthly flow under Prefect on a small generated bank: publish, rerun, withhold, stop."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+import duckdb
+import pytest
+
+from tasks.errors import GateStopped
+
+pytestmark = pytest.mark.integration
+CUSTOMERS = 400
+
+
+@pytest.fixture(scope="module")
+def home(tmp_path_factory, prefect_api):
+    home = tmp_path_factory.mktemp("flow-home")
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setenv("LEDGERBAND_HOME", str(home))
+        yield home
+
+
+@pytest.fixture(scope="module")
+def demo(home):
+    from tasks.demo_data import generate
+    from tasks.settings import get_settings
+
+    get_settings.cache_clear()
+    s = get_settings()
+    return generate(s.demo_landing_dir, s.demo_answers_path, customers=CUSTOMERS, months=3, end_period="2026-10",
+                    seed=11)
+
+
+@pytest.fixture(scope="module")
+def first_run(demo):
+    from flows.monthly import monthly_run
+
+    return monthly_run("2026-10", demo.landing_dir)
+
+
+def _q(home: Path, query: str, params=None):
+    con = duckdb.connect(str(home / "warehouse.duckdb"), read_only=True)
+    try:
+        return con.execute(query, params).fetchall()
+    finally:
+        con.close()
+
+
+def test_a_month_publishes_one_band_row_per_customer(home, first_run):
+    assert first_run["status"] == "published"
+    assert _q(home, "select count(*), count(distinct customer_id) from published.income_bands") == [(CUSTOMERS,
+                                                                                                      CUSTOMERS)]
+    # Published totals equal feature totals: every customer of the reference file is banded once.
+    assert _q(home, "select sum(customer_count) from published.band_summary") == [(CUSTOMERS,)]
+    sources = dict(_q(home, "select band_source, count(*) from published.income_bands group by all"))
+    assert sources["observed_salary"] == _q(home, "select count(*) from features.customer_salary")[0][0]
+    assert sources["model_estimate"] > 0
+
+
+def test_every_stage_is_recorded_in_ops_runs(home, first_run):
+    [(status, stages)] = _q(home, "select status, stages from ops.runs where run_id = ?", [first_run["run_id"]])
+    stages = json.loads(stages)
+    assert status == "published"
+    assert [s["stage"] for s in stages] == ["ingest", "validate", "features", "train", "accuracy_gate", "publish",
+                                            "report"]
+    assert all(s["status"] == "ok" and s["seconds"] is not None for s in stages)
+
+
+def test_rows_in_equal_rows_staged_plus_quarantined(home, first_run, demo):
+    in_files = sum(json.loads(m.read_text())["row_count"] for m in demo.manifests)
+    staged = _q(home, "select count(*) from staging.transactions")[0][0]
+    quarantined = _q(home, "select count(*) from quarantine.ledger_lines")[0][0]
+    assert in_files == staged + quarantined == demo.rows
+
+
+def test_readers_open_the_published_copy_while_the_warehouse_is_held(home, first_run):
+    writer = duckdb.connect(str(home / "warehouse.duckdb"))  # a run in progress holds the file
+    try:
+        reader = duckdb.connect(first_run["published_path"], read_only=True)
+        assert reader.execute("select count(*) from income_bands").fetchall() == [(CUSTOMERS,)]
+        reader.close()
+    finally:
+        writer.close()
+
+
+def test_report_carries_the_cautions_and_the_model_comparison(first_run):
+    html = Path(first_run["report"]).read_text()
+    assert "Internal reporting only" in html and "never replace verified income" in html
+    assert "baseline_mean" in html and "linear_regression" in html and "decision_tree" in html
+    assert "Published:" in html
+
+
+def test_saved_model_reloads_and_reproduces_the_estimates(home, first_run):
+    import numpy as np
+
+    from tasks.train import load_model, model_frame
+
+    folder = home / "models" / "2026-10" / first_run["run_id"]
+    assert sorted(p.name for p in folder.iterdir()) == ["model.skops", "model_card.json"]
+    card = json.loads((folder / "model_card.json").read_text())
+    assert "sex" not in card["features"] and "age_years" not in card["features"]
+    model = load_model(folder / "model.skops")
+    con = duckdb.connect(str(home / "warehouse.duckdb"), read_only=True)
+    frame = model_frame(con)
+    stored = dict(con.execute("select customer_id, estimate from ml.predictions where run_id = ?",
+                              [first_run["run_id"]]).fetchall())
+    con.close()
+    again = np.clip(model.predict(frame[card["features"]]), 0, None)
+    assert np.allclose(again, frame["customer_id"].map(stored).to_numpy())
+
+
+def test_rerun_loads_nothing_twice_and_publishes_a_new_snapshot(home, first_run, demo):
+    from flows.monthly import monthly_run
+
+    raw_before = _q(home, "select count(*) from raw.ledger_lines")[0][0]
+    second = monthly_run("2026-10", demo.landing_dir)
+    assert _q(home, "select count(*) from raw.ledger_lines")[0][0] == raw_before
+    assert _q(home, "select count(*) from ops.loads")[0][0] == 4  # three extracts + customers, once each
+    assert _q(home, "select run_id from published.snapshots where is_current") == [(second["run_id"],)]
+    assert _q(home, "select count(*) from published.income_bands")[0][0] == CUSTOMERS
+
+
+def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(home, first_run, demo, monkeypatch):
+    from flows.monthly import monthly_run
+    from tasks.settings import get_settings
+
+    current = _q(home, "select run_id from published.snapshots where is_current")
+    monkeypatch.setenv("LEDGERBAND_ACCURACY__MIN_BAND_ACCURACY", "0.999")
+    get_settings.cache_clear()
+    with pytest.raises(GateStopped, match="accuracy gate stopped the run: .*band accuracy .* < accuracy.min_band_"
+                                          "accuracy 99.90%"):
+        monthly_run("2026-10", demo.landing_dir)
+    assert _q(home, "select run_id from published.snapshots where is_current") == current
+    [(status, error)] = _q(home, "select status, error from ops.runs order by started_at desc limit 1")
+    assert status == "withheld" and "min_band_accuracy" in error
+    alerts = [json.loads(line) for line in (home / "alerts" / "alerts.jsonl").read_text().splitlines()]
+    assert alerts[-1]["state"] == "Failed" and "min_band_accuracy" in alerts[-1]["message"]
+    assert "Withheld" in (home / "reports" / "2026-10" / "index.html").read_text()
+
+
+def test_bad_extract_stops_the_run_at_the_quality_gate(home, first_run, monkeypatch, tmp_path):
+    from flows.monthly import monthly_run
+    from tasks.settings import get_settings
+
+    landing = tmp_path / "landing"
+    shutil.copytree(Path(__file__).parents[1] / "fixtures" / "ledger_bad", landing)
+    monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path / "state"))
+    monkeypatch.setenv("LEDGERBAND_FEATURES__WINDOW_MONTHS", "1")
+    get_settings.cache_clear()
+    with pytest.raises(GateStopped, match="quality gate stopped the run: .*ledger-2026-10.csv: quarantined share "
+                                          "85.71% \\(6 of 7 records\\)"):
+        monthly_run("2026-10", landing)
+    assert _q(tmp_path / "state", "select status from ops.runs") == [("stopped",)]
+    assert _q(tmp_path / "state", "select status from ops.loads where dataset = 'ledger'") == [("rejected",)]
