@@ -13,8 +13,11 @@ from rich.table import Table
 import tasks  # noqa: F401  (process environment first)
 from tasks.errors import LedgerbandError
 
-app = typer.Typer(add_completion=False, no_args_is_help=True,
-                  help="Monthly ledger extracts → DuckDB → quality gate → salary labels → income bands.")
+app = typer.Typer(
+    add_completion=False,
+    no_args_is_help=True,
+    help="Monthly ledger extracts → DuckDB → quality gate → salary labels → income bands.",
+)
 out = Console()
 err = Console(stderr=True)
 
@@ -44,7 +47,9 @@ def _print_result(result: dict) -> None:
         table.add_column(col, justify="right" if col != "candidate" else "left")
     for c in result.get("candidates", []):
         mark = " (champion)" if c["name"] == result.get("champion") else ""
-        table.add_row(c["name"] + mark, f"{c['rmse_mean']:,.0f}", f"{c['rmse_std']:,.0f}", f"{c['mae_mean']:,.0f}")
+        table.add_row(
+            c["name"] + mark, f"{c['rmse_mean']:,.0f}", f"{c['rmse_std']:,.0f}", f"{c['mae_mean']:,.0f}"
+        )
     out.print(table)
     out.print(f"[green]Accuracy gate passed:[/] {result['accuracy']['reason']}")
     out.print(f"Published tables (readers open this file): [bold]{result['published_path']}[/]")
@@ -62,7 +67,9 @@ def _run_guarded(fn, *args, **kwargs) -> dict:
 
 @app.command()
 def demo(
-    customers: Annotated[int | None, typer.Option(help="Customers to generate (default from settings: 2000).")] = None,
+    customers: Annotated[
+        int | None, typer.Option(help="Customers to generate (default from settings: 2000).")
+    ] = None,
     months: Annotated[int | None, typer.Option(help="Months of extracts ending at --end-period.")] = None,
     end_period: Annotated[str | None, typer.Option(help="Last month, YYYY-MM.")] = None,
     file_format: Annotated[str | None, typer.Option("--format", help="csv or parquet.")] = None,
@@ -72,18 +79,23 @@ def demo(
     from flows.demo import demo_run
 
     out.print(f"Generating demo extracts in {s.demo_landing_dir} and running the monthly flow …")
-    result = _run_guarded(demo_run, customers=customers, months=months, end_period=end_period,
-                          file_format=file_format)
+    result = _run_guarded(
+        demo_run, customers=customers, months=months, end_period=end_period, file_format=file_format
+    )
     g = result["generated"]
-    out.print(f"Demo extracts: {len(g['periods'])} month(s) {g['periods'][0]}..{g['periods'][-1]}, "
-              f"{g['rows']:,} ledger records; true incomes (never read by the pipeline): {g['answers']}")
+    out.print(
+        f"Demo extracts: {len(g['periods'])} month(s) {g['periods'][0]}..{g['periods'][-1]}, "
+        f"{g['rows']:,} ledger records; true incomes (never read by the pipeline): {g['answers']}"
+    )
     _print_result(result)
 
 
 @app.command()
 def run(
     period: Annotated[str, typer.Option(help="Month to run, YYYY-MM.")],
-    landing: Annotated[Path | None, typer.Option(help="Landing folder: <landing>/<period>/ and customers.csv.")] = None,
+    landing: Annotated[
+        Path | None, typer.Option(help="Landing folder: <landing>/<period>/ and customers.csv.")
+    ] = None,
 ) -> None:
     """Run the monthly flow for one period on the files in the landing folder."""
     s = _settings()
@@ -104,15 +116,24 @@ def status(limit: Annotated[int, typer.Option(help="How many recent runs to show
 
     s = _settings()
     if not s.warehouse_path.exists():
-        _fail(LedgerbandError(f"no warehouse yet at {s.warehouse_path}; run `ledgerband demo` or `ledgerband run`"))
+        _fail(
+            LedgerbandError(
+                f"no warehouse yet at {s.warehouse_path}; run `ledgerband demo` or `ledgerband run`"
+            )
+        )
     try:
         con = connect(s.warehouse_path, read_only=True)
     except duckdb.IOException:
-        _fail(LedgerbandError("the warehouse is busy (a run is writing it); published tables stay readable at "
-                              f"{s.published_path}"))
+        _fail(
+            LedgerbandError(
+                "the warehouse is busy (a run is writing it); published tables stay readable at "
+                f"{s.published_path}"
+            )
+        )
     rows = con.execute(
         "select run_id, period, started_at, finished_at, status, error, stages from ops.runs "
-        "order by started_at desc limit ?", [limit]
+        "order by started_at desc limit ?",
+        [limit],
     ).fetchall()
     con.close()
     table = Table(title="Recent runs")

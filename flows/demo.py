@@ -13,17 +13,39 @@ from tasks.settings import get_settings
 @task(name="generate-demo-extracts", cache_policy=NO_CACHE)
 def generate_task(customers: int, months: int, end_period: str, seed: int, file_format: str) -> dict:
     s = get_settings()
-    files = generate(s.demo_landing_dir, s.demo_answers_path, customers=customers, months=months, end_period=end_period,
-                     seed=seed, file_format=file_format, institution=s.demo.institution)
-    return {"landing_dir": str(files.landing_dir), "periods": files.periods, "rows": files.rows,
-            "answers": str(files.answers)}
+    files = generate(
+        s.demo_landing_dir,
+        s.demo_answers_path,
+        customers=customers,
+        months=months,
+        end_period=end_period,
+        seed=seed,
+        file_format=file_format,
+        institution=s.demo.institution,
+    )
+    return {
+        "landing_dir": str(files.landing_dir),
+        "periods": files.periods,
+        "rows": files.rows,
+        "answers": str(files.answers),
+    }
 
 
 @flow(name="ledgerband-demo")
-def demo_run(customers: int | None = None, months: int | None = None, end_period: str | None = None,
-             seed: int | None = None, file_format: str | None = None) -> dict:
+def demo_run(
+    customers: int | None = None,
+    months: int | None = None,
+    end_period: str | None = None,
+    seed: int | None = None,
+    file_format: str | None = None,
+) -> dict:
     d = get_settings().demo
-    generated = generate_task(customers or d.customers, months or d.months, end_period or d.end_period,
-                              d.seed if seed is None else seed, file_format or d.file_format)
+    generated = generate_task(
+        customers or d.customers,
+        months or d.months,
+        end_period or d.end_period,
+        d.seed if seed is None else seed,
+        file_format or d.file_format,
+    )
     result = monthly_run(generated["periods"][-1], generated["landing_dir"])
     return {"generated": generated, **result}

@@ -48,10 +48,10 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> dict:
             manifests = find_extracts_task(landing, window)
             loads = [ingest_extract_task(warehouse, m, run_id) for m in manifests]
             loads.append(ingest_customers_task(warehouse, landing / "customers.csv", run_id))
-            stage["detail"] = {l["source_file"]: l["status"] for l in loads}
+            stage["detail"] = {load["source_file"]: load["status"] for load in loads}
         with log.stage("validate") as stage:
-            new = [l for l in loads if l["status"] == "loaded" and l["period"] is not None]
-            validations = [validate_load_task(warehouse, l["load_id"], settings) for l in new]
+            new = [load for load in loads if load["status"] == "loaded" and load["period"] is not None]
+            validations = [validate_load_task(warehouse, load["load_id"], settings) for load in new]
             quality = quality_gate_task(warehouse, run_id, period, validations, settings)
             log.gate_figures["quality"] = quality
             stage["detail"] = quality["reason"]
@@ -68,8 +68,9 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> dict:
             stage["detail"] = accuracy["reason"]
         if accuracy["passed"]:
             with log.stage("publish") as stage:
-                result["publish"] = stage["detail"] = publish_task(warehouse, run_id, period, train["model_version"],
-                                                                   settings)
+                result["publish"] = stage["detail"] = publish_task(
+                    warehouse, run_id, period, train["model_version"], settings
+                )
         with log.stage("report"):
             result["report"] = report_task(warehouse, run_id, period, settings)
         if not accuracy["passed"]:
@@ -81,7 +82,12 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> dict:
         log.finish("failed", f"{type(exc).__name__}: {exc}")
         raise
     log.finish("published")
-    result.update(status="published", quality=quality, accuracy=accuracy,
-                  champion=train["champion"], candidates=train["candidates"],
-                  published_path=str(settings.published_path))
+    result.update(
+        status="published",
+        quality=quality,
+        accuracy=accuracy,
+        champion=train["champion"],
+        candidates=train["candidates"],
+        published_path=str(settings.published_path),
+    )
     return result

@@ -27,5 +27,10 @@ def alert_owners_hook(flow, flow_run, state) -> None:
     from tasks.settings import get_settings
 
     settings = get_settings()
-    write_alert(settings.alerts_log, flow_run=f"{flow.name}/{flow_run.name}", state=state.name,
-                message=state.message or "", owners=settings.owners)
+    write_alert(
+        settings.alerts_log,
+        flow_run=f"{flow.name}/{flow_run.name}",
+        state=state.name,
+        message=state.message or "",
+        owners=settings.owners,
+    )

@@ -25,8 +25,15 @@ def band_table(edges: Sequence[float], currency: str) -> pd.DataFrame:
             label = f"{_money(lower)} {currency} and over"
         else:
             label = f"{_money(lower)} to under {_money(upper)} {currency}"
-        rows.append({"band_index": i, "income_band": f"B{i + 1}", "lower_bound": lower, "upper_bound": upper,
-                     "band_label": label})
+        rows.append(
+            {
+                "band_index": i,
+                "income_band": f"B{i + 1}",
+                "lower_bound": lower,
+                "upper_bound": upper,
+                "band_label": label,
+            }
+        )
     return pd.DataFrame(rows).astype({"lower_bound": "float64", "upper_bound": "float64"})
 
 

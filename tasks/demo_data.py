@@ -42,7 +42,14 @@ LEDGER_COLUMNS = (
 )
 CUSTOMER_COLUMNS = ("customer_id", "birth_date", "sex", "home_region", "opened_date")
 
-REGIONS = ("Corrandale Central", "Velmora Coast", "Quellbrook", "Hathervane Hills", "Silvermarsh", "Oakhollow")
+REGIONS = (
+    "Corrandale Central",
+    "Velmora Coast",
+    "Quellbrook",
+    "Hathervane Hills",
+    "Silvermarsh",
+    "Oakhollow",
+)
 REGION_PAY_FACTOR = np.array([1.15, 1.05, 0.95, 0.90, 0.85, 1.00])
 
 # Latent occupation groups (not in the customer file): median net annual pay, share of customers.
@@ -65,7 +72,12 @@ BTC_CASH = "PMNT/CCRD/CWDL"
 
 FREQUENCIES = ("weekly", "fortnightly", "four_weekly", "monthly")
 FREQUENCY_SHARE = np.array([0.10, 0.20, 0.15, 0.55])
-PERIODS_PER_YEAR = {"weekly": 365.25 / 7, "fortnightly": 365.25 / 14, "four_weekly": 365.25 / 28, "monthly": 12.0}
+PERIODS_PER_YEAR = {
+    "weekly": 365.25 / 7,
+    "fortnightly": 365.25 / 14,
+    "four_weekly": 365.25 / 28,
+    "monthly": 12.0,
+}
 
 
 @dataclass(frozen=True)
@@ -131,12 +143,16 @@ def _customers(rng: np.random.Generator, n: int, end: date) -> pd.DataFrame:
     )
 
 
-def _income_credits(rng: np.random.Generator, cust: pd.DataFrame, start: date, end: date) -> tuple[list, pd.DataFrame]:
+def _income_credits(
+    rng: np.random.Generator, cust: pd.DataFrame, start: date, end: date
+) -> tuple[list, pd.DataFrame]:
     """Payroll and other income credits; returns (rows, per-customer pay facts for the answer file)."""
     rows: list[tuple] = []
     facts = []
     n = len(cust)
-    kind = rng.choice(["payroll", "self_employed", "pension_or_benefit", "paid_elsewhere"], n, p=[0.85, 0.07, 0.04, 0.04])
+    kind = rng.choice(
+        ["payroll", "self_employed", "pension_or_benefit", "paid_elsewhere"], n, p=[0.85, 0.07, 0.04, 0.04]
+    )
     for i, c in enumerate(cust.itertuples(index=False)):
         if kind[i] == "payroll":
             jobs = 2 if rng.random() < 0.06 else 1
@@ -153,14 +169,37 @@ def _income_credits(rng: np.random.Generator, cust: pd.DataFrame, start: date, e
                 coded = rng.random() < 0.7
                 for d in _pay_dates(freq, anchor, start, end, pay_day):
                     rows.append(
-                        (c.customer_id, c.account_id, d, amount, "CRDT", BTC_SALARY if coded else BTC_TRANSFER_IN,
-                         "SALA", employer, None, None)
+                        (
+                            c.customer_id,
+                            c.account_id,
+                            d,
+                            amount,
+                            "CRDT",
+                            BTC_SALARY if coded else BTC_TRANSFER_IN,
+                            "SALA",
+                            employer,
+                            None,
+                            None,
+                        )
                     )
             facts.append((c.customer_id, c.income, "payroll", "+".join(freqs)))
         elif kind[i] == "pension_or_benefit":
             amount = round(c.income / 12, 2)
             for d in _pay_dates("monthly", start, start, end, 10):
-                rows.append((c.customer_id, c.account_id, d, amount, "CRDT", BTC_TRANSFER_IN, "PENS", "GOV-0001", None, None))
+                rows.append(
+                    (
+                        c.customer_id,
+                        c.account_id,
+                        d,
+                        amount,
+                        "CRDT",
+                        BTC_TRANSFER_IN,
+                        "PENS",
+                        "GOV-0001",
+                        None,
+                        None,
+                    )
+                )
             facts.append((c.customer_id, c.income, kind[i], None))
         else:
             # Irregular credits from several payers (clients, or the customer's own account elsewhere).
@@ -170,10 +209,24 @@ def _income_credits(rng: np.random.Generator, cust: pd.DataFrame, start: date, e
             payer_pool = [f"CP-{int(rng.integers(1, 90_000)):05d}" for _ in range(3)]
             for part in parts:
                 d = _previous_business_day(start + timedelta(days=int(rng.integers(0, days))))
-                rows.append((c.customer_id, c.account_id, d, round(float(part), 2), "CRDT", BTC_TRANSFER_IN, None,
-                             str(rng.choice(payer_pool)), None, None))
+                rows.append(
+                    (
+                        c.customer_id,
+                        c.account_id,
+                        d,
+                        round(float(part), 2),
+                        "CRDT",
+                        BTC_TRANSFER_IN,
+                        None,
+                        str(rng.choice(payer_pool)),
+                        None,
+                        None,
+                    )
+                )
             facts.append((c.customer_id, c.income, kind[i], None))
-    answers = pd.DataFrame(facts, columns=["customer_id", "true_annual_income", "income_kind", "pay_frequency"])
+    answers = pd.DataFrame(
+        facts, columns=["customer_id", "true_annual_income", "income_kind", "pay_frequency"]
+    )
     return rows, answers
 
 
@@ -195,12 +248,35 @@ def _spending(rng: np.random.Generator, cust: pd.DataFrame, start: date, end: da
         util = [f"MER-{int(rng.integers(1, 99_999)):05d}" for _ in range(2)]
         housing_day, util_day = int(rng.integers(1, 6)), int(rng.integers(8, 20))
         while p.start <= end:
-            rows.append((c.customer_id, c.account_id, _previous_business_day(date(p.year, p.month, housing_day)),
-                         round(housing, 2), "DBIT", BTC_DIRECT_DEBIT, None, landlord, None, None))
+            rows.append(
+                (
+                    c.customer_id,
+                    c.account_id,
+                    _previous_business_day(date(p.year, p.month, housing_day)),
+                    round(housing, 2),
+                    "DBIT",
+                    BTC_DIRECT_DEBIT,
+                    None,
+                    landlord,
+                    None,
+                    None,
+                )
+            )
             for u, share in zip(util, (0.6, 0.4), strict=True):
-                rows.append((c.customer_id, c.account_id, _previous_business_day(date(p.year, p.month, util_day)),
-                             round(utilities * share * float(rng.uniform(0.85, 1.15)), 2), "DBIT", BTC_DIRECT_DEBIT,
-                             None, u, None, None))
+                rows.append(
+                    (
+                        c.customer_id,
+                        c.account_id,
+                        _previous_business_day(date(p.year, p.month, util_day)),
+                        round(utilities * share * float(rng.uniform(0.85, 1.15)), 2),
+                        "DBIT",
+                        BTC_DIRECT_DEBIT,
+                        None,
+                        u,
+                        None,
+                        None,
+                    )
+                )
             p = p.shift(1)
         # Card payments: count and discretionary mix rise with income.
         n_card = int(rng.poisson((14 + 12 * np.sqrt(rel)) * months))
@@ -215,16 +291,51 @@ def _spending(rng: np.random.Generator, cust: pd.DataFrame, start: date, end: da
             d = rng.integers(0, days, n_card)
             merchants = rng.integers(1, 99_999, n_card)
             for k in range(n_card):
-                rows.append((c.customer_id, c.account_id, start + timedelta(days=int(d[k])), float(amounts[k]), "DBIT",
-                             BTC_CARD, None, f"MER-{merchants[k]:05d}", str(mcc[k]), str(region[k])))
+                rows.append(
+                    (
+                        c.customer_id,
+                        c.account_id,
+                        start + timedelta(days=int(d[k])),
+                        float(amounts[k]),
+                        "DBIT",
+                        BTC_CARD,
+                        None,
+                        f"MER-{merchants[k]:05d}",
+                        str(mcc[k]),
+                        str(region[k]),
+                    )
+                )
         # Cash withdrawals and an occasional transfer out.
         for _ in range(int(rng.poisson(2 * months))):
-            rows.append((c.customer_id, c.account_id, start + timedelta(days=int(rng.integers(0, days))),
-                         float(rng.choice([20, 50, 100, 200])), "DBIT", BTC_CASH, None, None, None, None))
+            rows.append(
+                (
+                    c.customer_id,
+                    c.account_id,
+                    start + timedelta(days=int(rng.integers(0, days))),
+                    float(rng.choice([20, 50, 100, 200])),
+                    "DBIT",
+                    BTC_CASH,
+                    None,
+                    None,
+                    None,
+                    None,
+                )
+            )
         for _ in range(int(rng.poisson(0.8 * months))):
-            rows.append((c.customer_id, c.account_id, start + timedelta(days=int(rng.integers(0, days))),
-                         round(float(rng.lognormal(np.log(150 * rel + 30), 0.8)), 2), "DBIT", BTC_TRANSFER_OUT, None,
-                         f"CP-{int(rng.integers(1, 90_000)):05d}", None, None))
+            rows.append(
+                (
+                    c.customer_id,
+                    c.account_id,
+                    start + timedelta(days=int(rng.integers(0, days))),
+                    round(float(rng.lognormal(np.log(150 * rel + 30), 0.8)), 2),
+                    "DBIT",
+                    BTC_TRANSFER_OUT,
+                    None,
+                    f"CP-{int(rng.integers(1, 90_000)):05d}",
+                    None,
+                    None,
+                )
+            )
     return rows
 
 
@@ -235,7 +346,9 @@ def _to_cents(x: pd.Series) -> pd.Series:
 def _format_cents(cents: pd.Series) -> pd.Series:
     sign = np.where(cents < 0, "-", "")
     a = np.abs(cents)
-    return pd.Series(sign, index=cents.index) + (a // 100).astype(str) + "." + (a % 100).astype(str).str.zfill(2)
+    return (
+        pd.Series(sign, index=cents.index) + (a // 100).astype(str) + "." + (a % 100).astype(str).str.zfill(2)
+    )
 
 
 def _sha256(path: Path) -> str:
@@ -269,18 +382,37 @@ def generate(
     cust = _customers(rng, customers, end)
     income_rows, answers = _income_credits(rng, cust, start, end)
     rows = income_rows + _spending(rng, cust, start, end)
-    cols = ["customer_id", "account_id", "booking_date", "amount", "direction", "bank_txn_code", "purpose_code",
-            "counterparty_id", "merchant_category", "merchant_region"]
+    cols = [
+        "customer_id",
+        "account_id",
+        "booking_date",
+        "amount",
+        "direction",
+        "bank_txn_code",
+        "purpose_code",
+        "counterparty_id",
+        "merchant_category",
+        "merchant_region",
+    ]
     tx = pd.DataFrame(rows, columns=cols)
     tx["cents"] = _to_cents(tx["amount"])
     # Weekend moves can push a booking before the first month; the extracts cover whole months only.
     tx = tx[(tx["cents"] > 0) & (tx["booking_date"] >= start) & (tx["booking_date"] <= end)]
     # Credits post before debits on the same day; stable order within a day keeps balances reproducible.
     tx["_dir_order"] = (tx["direction"] == "DBIT").astype(int)
-    tx = tx.sort_values(["account_id", "booking_date", "_dir_order", "cents"], kind="mergesort").reset_index(drop=True)
+    tx = tx.sort_values(["account_id", "booking_date", "_dir_order", "cents"], kind="mergesort").reset_index(
+        drop=True
+    )
     signed = np.where(tx["direction"] == "CRDT", tx["cents"], -tx["cents"])
-    opening = (cust.set_index("account_id")["income"] * rng.uniform(0.01, 0.25, len(cust)) * 100).round().astype("int64")
-    tx["balance_cents"] = opening.reindex(tx["account_id"]).to_numpy() + pd.Series(signed).groupby(tx["account_id"]).cumsum().to_numpy()
+    opening = (
+        (cust.set_index("account_id")["income"] * rng.uniform(0.01, 0.25, len(cust)) * 100)
+        .round()
+        .astype("int64")
+    )
+    tx["balance_cents"] = (
+        opening.reindex(tx["account_id"]).to_numpy()
+        + pd.Series(signed).groupby(tx["account_id"]).cumsum().to_numpy()
+    )
     tx["currency"] = "EUR"
 
     landing_dir.mkdir(parents=True, exist_ok=True)
@@ -317,7 +449,9 @@ def generate(
                     table.schema.get_field_index(col), col, pc.cast(table[col], pa.decimal128(18, 2))
                 )
             table = table.set_column(
-                table.schema.get_field_index("booking_date"), "booking_date", pc.cast(table["booking_date"], pa.date32())
+                table.schema.get_field_index("booking_date"),
+                "booking_date",
+                pc.cast(table["booking_date"], pa.date32()),
             )
             pq.write_table(table, path)
         credit = int(month.loc[month["direction"] == "CRDT", "cents"].sum())
@@ -345,4 +479,6 @@ def generate(
     answers_path.parent.mkdir(parents=True, exist_ok=True)
     answers = answers.merge(cust[["customer_id", "occupation", "age"]], on="customer_id")
     answers.to_csv(answers_path, index=False, lineterminator="\n")
-    return DemoFiles(landing_dir, [str(p) for p in periods], extracts, manifests, customers_path, answers_path, len(tx))
+    return DemoFiles(
+        landing_dir, [str(p) for p in periods], extracts, manifests, customers_path, answers_path, len(tx)
+    )

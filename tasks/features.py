@@ -34,9 +34,12 @@ def window_params(period: str, settings: Settings) -> dict:
 def check_window_loaded(con: duckdb.DuckDBPyConnection, period: str, settings: Settings) -> None:
     """Refuse to build features over a window with a month that has no accepted extract."""
     window = [str(p) for p in Period.parse(period).window(settings.features.window_months)]
-    loaded = {r[0] for r in con.execute(
-        "select distinct period from ops.loads where dataset = 'ledger' and status = 'accepted'"
-    ).fetchall()}
+    loaded = {
+        r[0]
+        for r in con.execute(
+            "select distinct period from ops.loads where dataset = 'ledger' and status = 'accepted'"
+        ).fetchall()
+    }
     missing = [p for p in window if p not in loaded]
     if missing:
         raise LedgerbandError(
@@ -44,7 +47,9 @@ def check_window_loaded(con: duckdb.DuckDBPyConnection, period: str, settings: S
             "put those extracts and manifests in the landing folder and run again "
             "(or set features.window_months lower)"
         )
-    if not con.execute("select count(*) from ops.loads where dataset = 'customers' and status = 'accepted'").fetchall()[0][0]:
+    if not con.execute(
+        "select count(*) from ops.loads where dataset = 'customers' and status = 'accepted'"
+    ).fetchall()[0][0]:
         raise LedgerbandError("no customer reference file has been loaded")
 
 
@@ -55,12 +60,16 @@ def build_features(con: duckdb.DuckDBPyConnection, period: str, settings: Settin
     counts = {}
     for layer, name in LAYERS:
         run_sql_file(con, layer, name, params)
-        counts[f"{layer}.{name}"] = con.execute(f"select count(*)::bigint from {layer}.{name}").fetchall()[0][0]
-    dupes = con.execute(
-        "select count(*) - count(distinct customer_id) from features.customer"
-    ).fetchall()[0][0]
+        counts[f"{layer}.{name}"] = con.execute(f"select count(*)::bigint from {layer}.{name}").fetchall()[0][
+            0
+        ]
+    dupes = con.execute("select count(*) - count(distinct customer_id) from features.customer").fetchall()[0][
+        0
+    ]
     if dupes:
-        raise LedgerbandError(f"features.customer has {dupes} duplicate customer rows; grain is one per customer")
+        raise LedgerbandError(
+            f"features.customer has {dupes} duplicate customer rows; grain is one per customer"
+        )
     return counts
 
 

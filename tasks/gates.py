@@ -57,8 +57,11 @@ def quality_gate(validations: list[dict], settings: Settings) -> Decision:
             )
     if problems:
         return Decision("quality", False, " | ".join(problems), figures, {"max_quarantine_share": limit})
-    reason = f"{len(validations)} new extract(s) within the quarantine limit of {_pct(limit)}" if validations else (
-        "no new extract to validate (all files already accepted)")
+    reason = (
+        f"{len(validations)} new extract(s) within the quarantine limit of {_pct(limit)}"
+        if validations
+        else ("no new extract to validate (all files already accepted)")
+    )
     return Decision("quality", True, reason, figures, {"max_quarantine_share": limit})
 
 
@@ -66,31 +69,52 @@ def accuracy_gate(train: dict, settings: Settings) -> Decision:
     """The champion must beat predicting the mean and place enough customers in the right band."""
     a = settings.accuracy
     thresholds = a.model_dump()
-    figures = {k: train.get(k) for k in ("n_labelled", "champion", "baseline_rmse", "champion_rmse",
-                                         "champion_mae", "skill_over_baseline", "band_accuracy", "within_one_band")}
+    figures = {
+        k: train.get(k)
+        for k in (
+            "n_labelled",
+            "champion",
+            "baseline_rmse",
+            "champion_rmse",
+            "champion_mae",
+            "skill_over_baseline",
+            "band_accuracy",
+            "within_one_band",
+        )
+    }
     problems = []
     if train["n_labelled"] < a.min_labelled_customers:
-        problems.append(f"labelled customers {train['n_labelled']} < accuracy.min_labelled_customers "
-                        f"{a.min_labelled_customers}")
+        problems.append(
+            f"labelled customers {train['n_labelled']} < accuracy.min_labelled_customers "
+            f"{a.min_labelled_customers}"
+        )
     if train.get("champion") is None:
         problems.append(train.get("note") or "no model was trained")
     else:
         checks = (
-            ("skill_over_baseline", "min_skill_over_baseline", "RMSE skill over the predict-the-mean baseline"),
+            (
+                "skill_over_baseline",
+                "min_skill_over_baseline",
+                "RMSE skill over the predict-the-mean baseline",
+            ),
             ("band_accuracy", "min_band_accuracy", "out-of-fold band accuracy"),
             ("within_one_band", "min_within_one_band", "out-of-fold within-one-band rate"),
         )
         for figure, threshold, words in checks:
             if not train[figure] >= getattr(a, threshold):  # `not >=` also catches NaN
-                problems.append(f"{words} {_pct(train[figure])} < accuracy.{threshold} {_pct(getattr(a, threshold))}")
+                problems.append(
+                    f"{words} {_pct(train[figure])} < accuracy.{threshold} {_pct(getattr(a, threshold))}"
+                )
     if problems:
         return Decision("accuracy", False, "; ".join(problems), figures, thresholds)
     return Decision(
-        "accuracy", True,
+        "accuracy",
+        True,
         f"{train['champion']} RMSE {train['champion_rmse']:,.0f} vs baseline {train['baseline_rmse']:,.0f} "
         f"(skill {_pct(train['skill_over_baseline'])}); band accuracy {_pct(train['band_accuracy'])}, "
         f"within one band {_pct(train['within_one_band'])}",
-        figures, thresholds,
+        figures,
+        thresholds,
     )
 
 
@@ -98,8 +122,16 @@ def record_decision(con: duckdb.DuckDBPyConnection, run_id: str, period: str, de
     con.execute("delete from published.decisions where run_id = ? and gate = ?", [run_id, decision.gate])
     con.execute(
         "insert into published.decisions values (?, ?, ?, ?, ?, ?, ?, ?)",
-        [run_id, period, decision.gate, "pass" if decision.passed else "stop", decision.reason,
-         json.dumps(decision.figures, default=str), json.dumps(decision.thresholds), datetime.now()],
+        [
+            run_id,
+            period,
+            decision.gate,
+            "pass" if decision.passed else "stop",
+            decision.reason,
+            json.dumps(decision.figures, default=str),
+            json.dumps(decision.thresholds),
+            datetime.now(),
+        ],
     )
 
 
@@ -110,13 +142,19 @@ def settle_loads(con: duckdb.DuckDBPyConnection, validations: list[dict], decisi
         con.execute(
             "update ops.loads set status = ?, reason = coalesce(reason || '; ', '') || ?, decided_at = ? "
             "where load_id = ?",
-            [status, decision.reason if not decision.passed else "passed the quality gate", datetime.now(),
-             v["load_id"]],
+            [
+                status,
+                decision.reason if not decision.passed else "passed the quality gate",
+                datetime.now(),
+                v["load_id"],
+            ],
         )
 
 
 @task(name="quality-gate", cache_policy=NO_CACHE)
-def quality_gate_task(warehouse: Path, run_id: str, period: str, validations: list[dict], settings: Settings) -> dict:
+def quality_gate_task(
+    warehouse: Path, run_id: str, period: str, validations: list[dict], settings: Settings
+) -> dict:
     decision = quality_gate(validations, settings)
     with open_warehouse(warehouse) as con:
         con.execute("begin transaction")

@@ -86,12 +86,16 @@ def read_manifest(path: Path) -> Manifest:
     if missing:
         raise ExtractError(f"manifest {path}: missing field(s) {', '.join(missing)}")
     if not isinstance(data["row_count"], int) or data["row_count"] < 0:
-        raise ExtractError(f"manifest {path}: row_count must be a non-negative integer, got {data['row_count']!r}")
+        raise ExtractError(
+            f"manifest {path}: row_count must be a non-negative integer, got {data['row_count']!r}"
+        )
     totals = {}
     for key in ("credit_total", "debit_total"):
         text = data[key]
         if not isinstance(text, str) or not _DECIMAL_TEXT.match(text):
-            raise ExtractError(f"manifest {path}: {key} must be a decimal string like \"1234.56\", got {text!r}")
+            raise ExtractError(
+                f'manifest {path}: {key} must be a decimal string like "1234.56", got {text!r}'
+            )
         try:
             totals[key] = Decimal(text)
         except InvalidOperation as exc:  # pragma: no cover - regex already guards
@@ -100,7 +104,9 @@ def read_manifest(path: Path) -> Manifest:
         raise ExtractError(f"manifest {path}: sha256 must be 64 hex digits")
     Period.parse(str(data["period"]))
     if Path(data["file"]).name != data["file"]:
-        raise ExtractError(f"manifest {path}: file must be a bare file name beside the manifest, got {data['file']!r}")
+        raise ExtractError(
+            f"manifest {path}: file must be a bare file name beside the manifest, got {data['file']!r}"
+        )
     return Manifest(
         path=path,
         period=str(data["period"]),
@@ -120,10 +126,14 @@ def find_manifests(landing_dir: Path, period: str) -> list[Manifest]:
         raise ExtractError(f"no landing folder for period {period}: expected {folder}")
     manifests = [read_manifest(p) for p in sorted(folder.glob("*.manifest.json"))]
     if not manifests:
-        raise ExtractError(f"no manifest (*.manifest.json) in {folder}: every extract needs its control manifest")
+        raise ExtractError(
+            f"no manifest (*.manifest.json) in {folder}: every extract needs its control manifest"
+        )
     for m in manifests:
         if m.period != period:
-            raise ExtractError(f"manifest {m.path}: says period {m.period}, but it lies in the folder for {period}")
+            raise ExtractError(
+                f"manifest {m.path}: says period {m.period}, but it lies in the folder for {period}"
+            )
         if not m.extract_path.is_file():
             raise ExtractError(f"manifest {m.path}: names file {m.file}, which is not in {folder}")
     return manifests
@@ -162,7 +172,9 @@ def read_records(path: Path, expected_columns: tuple[str, ...]) -> Records:
             read_options=pacsv.ReadOptions(use_threads=False, block_size=1 << 24),
             parse_options=pacsv.ParseOptions(invalid_row_handler=on_invalid),
             convert_options=pacsv.ConvertOptions(
-                column_types={c: pa.string() for c in header}, strings_can_be_null=True, quoted_strings_can_be_null=True
+                column_types={c: pa.string() for c in header},
+                strings_can_be_null=True,
+                quoted_strings_can_be_null=True,
             ),
         )
     except pa.ArrowInvalid as exc:
@@ -228,9 +240,13 @@ def _new_load_id() -> str:
 
 def _forget_unaccepted(con: duckdb.DuckDBPyConnection, sha: str, dataset: str) -> None:
     """Drop what an earlier, unfinished or rejected attempt at the same bytes left, so a retry is clean."""
-    ids = [r[0] for r in con.execute(
-        "select load_id from ops.loads where sha256 = ? and dataset = ? and status <> 'accepted'", [sha, dataset]
-    ).fetchall()]
+    ids = [
+        r[0]
+        for r in con.execute(
+            "select load_id from ops.loads where sha256 = ? and dataset = ? and status <> 'accepted'",
+            [sha, dataset],
+        ).fetchall()
+    ]
     for load_id in ids:
         for table in ("raw.ledger_lines", "raw.customers", "quarantine.ledger_lines"):
             con.execute(f"delete from {table} where load_id = ?", [load_id])
@@ -255,8 +271,13 @@ def load_extract(con: duckdb.DuckDBPyConnection, manifest: Manifest, run_id: str
         "select load_id from ops.loads where sha256 = ? and dataset = 'ledger' and status = 'accepted'", [sha]
     ).fetchall()
     if accepted:
-        return LoadSummary(accepted[0][0], str(path), manifest.period, "skipped",
-                           notes=[f"already accepted as load {accepted[0][0]}; not loaded again"])
+        return LoadSummary(
+            accepted[0][0],
+            str(path),
+            manifest.period,
+            "skipped",
+            notes=[f"already accepted as load {accepted[0][0]}; not loaded again"],
+        )
     clash = con.execute(
         "select load_id, sha256 from ops.loads where dataset = 'ledger' and status = 'accepted' "
         "and period = ? and source_file like ?",
@@ -302,7 +323,9 @@ def load_extract(con: duckdb.DuckDBPyConnection, manifest: Manifest, run_id: str
         credit, debit, unreadable = Decimal(totals[0]), Decimal(totals[1]), int(totals[2])
         rows_loaded = records.table.num_rows
         rows_in_file = rows_loaded + len(records.malformed)
-        problems, notes = _reconcile(manifest, rows_in_file, credit, debit, unreadable + len(records.malformed))
+        problems, notes = _reconcile(
+            manifest, rows_in_file, credit, debit, unreadable + len(records.malformed)
+        )
         status = "rejected" if problems else "loaded"
         con.execute(
             """
@@ -310,9 +333,23 @@ def load_extract(con: duckdb.DuckDBPyConnection, manifest: Manifest, run_id: str
                 rows_loaded, rows_quarantined, credit_total, debit_total, status, reason, run_id, loaded_at, decided_at)
             values (?, 'ledger', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)
             """,
-            [load_id, manifest.period, str(path), sha, manifest.row_count, rows_in_file, rows_loaded,
-             len(records.malformed), credit, debit, status, "; ".join(problems + notes) or None, run_id, now,
-             now if problems else None],
+            [
+                load_id,
+                manifest.period,
+                str(path),
+                sha,
+                manifest.row_count,
+                rows_in_file,
+                rows_loaded,
+                len(records.malformed),
+                credit,
+                debit,
+                status,
+                "; ".join(problems + notes) or None,
+                run_id,
+                now,
+                now if problems else None,
+            ],
         )
         con.execute("commit")
     except Exception:
@@ -320,8 +357,16 @@ def load_extract(con: duckdb.DuckDBPyConnection, manifest: Manifest, run_id: str
         raise
     if problems:
         raise GateStopped("quality", f"{path}: " + "; ".join(problems))
-    return LoadSummary(load_id, str(path), manifest.period, "loaded", rows_in_file, rows_loaded,
-                       len(records.malformed), notes)
+    return LoadSummary(
+        load_id,
+        str(path),
+        manifest.period,
+        "loaded",
+        rows_in_file,
+        rows_loaded,
+        len(records.malformed),
+        notes,
+    )
 
 
 def _reconcile(
@@ -337,12 +382,18 @@ def _reconcile(
     if unreadable:
         # Records without a readable amount or direction cannot be summed; they are quarantined by
         # validation and bounded by the quarantine-share gate, so the totals cannot be checked exactly.
-        notes.append(f"control totals not verifiable: {unreadable} record(s) lack a readable amount or direction")
+        notes.append(
+            f"control totals not verifiable: {unreadable} record(s) lack a readable amount or direction"
+        )
     else:
-        for name, got, want in (("credit_total", credit, manifest.credit_total),
-                                ("debit_total", debit, manifest.debit_total)):
+        for name, got, want in (
+            ("credit_total", credit, manifest.credit_total),
+            ("debit_total", debit, manifest.debit_total),
+        ):
             if got != want:
-                problems.append(f"rule manifest_{name}: file sums to {got}, manifest {manifest.path.name} says {want}")
+                problems.append(
+                    f"rule manifest_{name}: file sums to {got}, manifest {manifest.path.name} says {want}"
+                )
     return problems, notes
 
 
@@ -351,15 +402,20 @@ def load_customers(con: duckdb.DuckDBPyConnection, path: Path, run_id: str) -> L
     if not path.is_file():
         raise ExtractError(f"customer reference file not found: {path}")
     sha = sha256_file(path)
-    accepted = scalar(con, "select load_id from ops.loads where sha256 = ? and dataset = 'customers' "
-                      "and status = 'accepted'", [sha])
+    accepted = scalar(
+        con,
+        "select load_id from ops.loads where sha256 = ? and dataset = 'customers' and status = 'accepted'",
+        [sha],
+    )
     if accepted:
         return LoadSummary(accepted, str(path), None, "skipped", notes=["same customer file already loaded"])
     records = read_records(path, CUSTOMER_COLUMNS)
     _check_header(path, records.header, CUSTOMER_COLUMNS, suite=None)
     if records.malformed:
         line, _, reason = records.malformed[0]
-        raise ExtractError(f"{path}: line {line} {reason} ({len(records.malformed)} malformed record(s) in all)")
+        raise ExtractError(
+            f"{path}: line {line} {reason} ({len(records.malformed)} malformed record(s) in all)"
+        )
     load_id = _new_load_id()
     now = datetime.now()
     con.execute("begin transaction")

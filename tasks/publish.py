@@ -38,11 +38,17 @@ def _insert_from_file(con: duckdb.DuckDBPyConnection, table: str, name: str, par
     con.execute(f"insert into {table}\n{query}", used)
 
 
-def publish_snapshot(con: duckdb.DuckDBPyConnection, run_id: str, period: str, model_version: str,
-                     settings: Settings) -> dict:
+def publish_snapshot(
+    con: duckdb.DuckDBPyConnection, run_id: str, period: str, model_version: str, settings: Settings
+) -> dict:
     """Write and switch to a new snapshot. Returns its row counts."""
     published_at = datetime.now()
-    params = {"run_id": run_id, "period": period, "model_version": model_version, "published_at": published_at}
+    params = {
+        "run_id": run_id,
+        "period": period,
+        "model_version": model_version,
+        "published_at": published_at,
+    }
     con.execute("begin transaction")
     try:
         write_band_table(con, settings.bands.edges, settings.bands.currency)
@@ -52,7 +58,8 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, run_id: str, period: str, m
         _insert_from_file(con, "published.band_summary_history", "band_summary", params)
         band_rows, distinct_customers = con.execute(
             "select count(*)::bigint, count(distinct customer_id)::bigint "
-            "from published.income_bands_history where run_id = ?", [run_id]
+            "from published.income_bands_history where run_id = ?",
+            [run_id],
         ).fetchall()[0]
         customers = con.execute("select count(*)::bigint from features.customer").fetchall()[0][0]
         summary_total = con.execute(
@@ -73,7 +80,11 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, run_id: str, period: str, m
     except Exception:
         con.execute("rollback")
         raise
-    return {"run_id": run_id, "customers": int(band_rows), "published_at": published_at.isoformat(timespec="seconds")}
+    return {
+        "run_id": run_id,
+        "customers": int(band_rows),
+        "published_at": published_at.isoformat(timespec="seconds"),
+    }
 
 
 def export_reader_copy(con: duckdb.DuckDBPyConnection, target: Path) -> Path:

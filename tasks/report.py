@@ -50,9 +50,10 @@ def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: S
         [],
     )
     models = _rows(con, "select * from ml.model_runs where run_id = ? order by rmse_mean", [run_id])
-    bands = _rows(
-        con,
-        """
+    bands = (
+        _rows(
+            con,
+            """
         select b.band_index, b.income_band, b.band_label,
                count(h.customer_id) filter (where h.band_source = 'observed_salary') as observed,
                count(h.customer_id) filter (where h.band_source = 'model_estimate') as estimated,
@@ -61,8 +62,11 @@ def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: S
         left join published.income_bands_history as h on h.income_band = b.income_band and h.run_id = ?
         group by all order by b.band_index
         """,
-        [run_id],
-    ) if _has_table(con, "ref", "income_bands") else []
+            [run_id],
+        )
+        if _has_table(con, "ref", "income_bands")
+        else []
+    )
     by_region = _rows(
         con,
         "select home_region, income_band, sum(customer_count)::bigint as customers "
@@ -88,17 +92,24 @@ def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: S
         "regions": regions,
         "band_codes": [b["income_band"] for b in bands],
         "cautions": CAUTIONS,
-        "settings": {"window_months": settings.features.window_months, "folds": settings.train.cv_folds,
-                     "repeats": settings.train.cv_repeats, "currency": settings.bands.currency,
-                     "features": list(settings.train.numeric_features) + list(settings.train.categorical_features)},
+        "settings": {
+            "window_months": settings.features.window_months,
+            "folds": settings.train.cv_folds,
+            "repeats": settings.train.cv_repeats,
+            "currency": settings.bands.currency,
+            "features": list(settings.train.numeric_features) + list(settings.train.categorical_features),
+        },
         "published_path": str(settings.published_path),
     }
 
 
 def _has_table(con: duckdb.DuckDBPyConnection, schema: str, name: str) -> bool:
-    return bool(con.execute(
-        "select count(*) from information_schema.tables where table_schema = ? and table_name = ?", [schema, name]
-    ).fetchall()[0][0])
+    return bool(
+        con.execute(
+            "select count(*) from information_schema.tables where table_schema = ? and table_name = ?",
+            [schema, name],
+        ).fetchall()[0][0]
+    )
 
 
 def render(context: dict) -> str:

@@ -65,6 +65,14 @@ class RunLog:
             con.execute("delete from ops.runs where run_id = ?", [self.run_id])
             con.execute(
                 "insert into ops.runs values (?, ?, ?, ?, ?, ?, ?, ?)",
-                [self.run_id, self.period, self.started_at, datetime.now() if finished else None, self.status,
-                 self.error, json.dumps(self.stages, default=str), json.dumps(self.gate_figures, default=str)],
+                [
+                    self.run_id,
+                    self.period,
+                    self.started_at,
+                    datetime.now() if finished else None,
+                    self.status,
+                    self.error,
+                    json.dumps(self.stages, default=str),
+                    json.dumps(self.gate_figures, default=str),
+                ],
             )

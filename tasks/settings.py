@@ -12,7 +12,12 @@ from functools import lru_cache
 from pathlib import Path
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
-from pydantic_settings import BaseSettings, PydanticBaseSettingsSource, SettingsConfigDict, TomlConfigSettingsSource
+from pydantic_settings import (
+    BaseSettings,
+    PydanticBaseSettingsSource,
+    SettingsConfigDict,
+    TomlConfigSettingsSource,
+)
 
 PROJECT_ROOT = Path(__file__).resolve().parents[1]
 
@@ -133,7 +138,11 @@ class Settings(BaseSettings):
         file_secret_settings: PydanticBaseSettingsSource,
     ) -> tuple[PydanticBaseSettingsSource, ...]:
         # LEDGERBAND_CONFIG and LEDGERBAND_HOME steer where things are; they are not settings keys.
-        return (init_settings, _FilteredEnv(settings_cls), TomlConfigSettingsSource(settings_cls, _config_file()))
+        return (
+            init_settings,
+            _FilteredEnv(settings_cls),
+            TomlConfigSettingsSource(settings_cls, _config_file()),
+        )
 
     # Paths derived from home: one place that says where every piece of state lives.
     @property

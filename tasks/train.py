@@ -56,8 +56,11 @@ def make_candidates(settings: Settings) -> dict[str, Pipeline]:
         pre = ColumnTransformer(
             [
                 ("categorical", OneHotEncoder(handle_unknown="ignore"), list(t.categorical_features)),
-                ("numeric", Pipeline([("impute", SimpleImputer(strategy="median")), ("scale", StandardScaler())]),
-                 list(t.numeric_features)),
+                (
+                    "numeric",
+                    Pipeline([("impute", SimpleImputer(strategy="median")), ("scale", StandardScaler())]),
+                    list(t.numeric_features),
+                ),
             ]
         )
         return Pipeline([("prepare", pre), ("model", model)])
@@ -67,7 +70,9 @@ def make_candidates(settings: Settings) -> dict[str, Pipeline]:
         "linear_regression": pipe(LinearRegression()),
         "decision_tree": pipe(
             DecisionTreeRegressor(
-                max_depth=t.tree_max_depth, min_samples_leaf=t.tree_min_samples_leaf, random_state=t.random_state
+                max_depth=t.tree_max_depth,
+                min_samples_leaf=t.tree_min_samples_leaf,
+                random_state=t.random_state,
             )
         ),
     }
@@ -94,15 +99,24 @@ def compare_candidates(X: pd.DataFrame, y: np.ndarray, settings: Settings) -> li
         res = cross_validate(pipe, X, y, cv=cv, scoring=SCORING, n_jobs=1)
         rmse, mae = -res["test_rmse"], -res["test_mae"]
         scores.append(
-            CandidateScore(name, float(rmse.mean()), float(rmse.std(ddof=1)), float(mae.mean()),
-                           float(mae.std(ddof=1)), rmse.tolist(), mae.tolist())
+            CandidateScore(
+                name,
+                float(rmse.mean()),
+                float(rmse.std(ddof=1)),
+                float(mae.mean()),
+                float(mae.std(ddof=1)),
+                rmse.tolist(),
+                mae.tolist(),
+            )
         )
     return scores
 
 
 def _git_sha() -> str:
     try:
-        out = subprocess.run(["git", "rev-parse", "HEAD"], cwd=PROJECT_ROOT, capture_output=True, text=True, timeout=5)
+        out = subprocess.run(
+            ["git", "rev-parse", "HEAD"], cwd=PROJECT_ROOT, capture_output=True, text=True, timeout=5
+        )
         return out.stdout.strip() or "unknown"
     except (OSError, subprocess.SubprocessError):
         return "unknown"
@@ -143,7 +157,9 @@ def train_and_predict(
     for table in ("ml.model_runs", "ml.cv_scores", "ml.predictions"):
         con.execute(f"delete from {table} where run_id = ?", [run_id])
     if len(labelled) < 2 * t.cv_folds:
-        summary.note = f"only {len(labelled)} labelled customers: too few to cross-validate with {t.cv_folds} folds"
+        summary.note = (
+            f"only {len(labelled)} labelled customers: too few to cross-validate with {t.cv_folds} folds"
+        )
         return summary
 
     scores = compare_candidates(X, y, settings)
@@ -162,13 +178,30 @@ def train_and_predict(
     model_version = f"{period}.{champion.name}.{run_id[:8]}"
     con.executemany(
         "insert into ml.model_runs values (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-        [[run_id, period, s.name, s.rmse_mean, s.rmse_std, s.mae_mean, s.mae_std, len(labelled),
-          len(s.rmse_by_split), s.name == champion.name, now] for s in scores],
+        [
+            [
+                run_id,
+                period,
+                s.name,
+                s.rmse_mean,
+                s.rmse_std,
+                s.mae_mean,
+                s.mae_std,
+                len(labelled),
+                len(s.rmse_by_split),
+                s.name == champion.name,
+                now,
+            ]
+            for s in scores
+        ],
     )
     con.executemany(
         "insert into ml.cv_scores values (?, ?, ?, ?, ?)",
-        [[run_id, s.name, i, r, m] for s in scores for i, (r, m) in enumerate(zip(s.rmse_by_split, s.mae_by_split,
-                                                                                   strict=True))],
+        [
+            [run_id, s.name, i, r, m]
+            for s in scores
+            for i, (r, m) in enumerate(zip(s.rmse_by_split, s.mae_by_split, strict=True))
+        ],
     )
     oof_by_customer = pd.Series(oof, index=labelled["customer_id"])
     predictions = pd.DataFrame(
@@ -184,21 +217,25 @@ def train_and_predict(
     con.execute("insert into ml.predictions select * from prediction_rows")
     con.unregister("prediction_rows")
 
-    model_path = _save_model(pipe, models_dir / period / run_id, {
-        "model_version": model_version,
-        "run_id": run_id,
-        "period": period,
-        "training_window_months": settings.features.window_months,
-        "champion": champion.name,
-        "features": features,
-        "protected_attributes_excluded": list(t.protected_attributes),
-        "n_labelled": len(labelled),
-        "cv": {"folds": t.cv_folds, "repeats": t.cv_repeats, "random_state": t.random_state},
-        "metrics": {s.name: {"rmse_mean": s.rmse_mean, "mae_mean": s.mae_mean} for s in scores},
-        "band_metrics_out_of_fold": bands,
-        "git_sha": _git_sha(),
-        "created_at": now.isoformat(timespec="seconds"),
-    })
+    model_path = _save_model(
+        pipe,
+        models_dir / period / run_id,
+        {
+            "model_version": model_version,
+            "run_id": run_id,
+            "period": period,
+            "training_window_months": settings.features.window_months,
+            "champion": champion.name,
+            "features": features,
+            "protected_attributes_excluded": list(t.protected_attributes),
+            "n_labelled": len(labelled),
+            "cv": {"folds": t.cv_folds, "repeats": t.cv_repeats, "random_state": t.random_state},
+            "metrics": {s.name: {"rmse_mean": s.rmse_mean, "mae_mean": s.mae_mean} for s in scores},
+            "band_metrics_out_of_fold": bands,
+            "git_sha": _git_sha(),
+            "created_at": now.isoformat(timespec="seconds"),
+        },
+    )
     summary.candidates = [{k: v for k, v in asdict(s).items() if not k.endswith("_by_split")} for s in scores]
     summary.champion = champion.name
     summary.model_version = model_version

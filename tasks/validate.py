@@ -63,7 +63,9 @@ def read_suite(name: str, directory: Path = EXPECTATIONS_DIR) -> SuiteParts:
     for i, exp in enumerate(data.get("expectations", [])):
         rule = (exp.get("meta") or {}).get("rule")
         if not rule:
-            raise LedgerbandError(f"expectation suite {path}: expectation #{i + 1} ({exp.get('type')}) has no meta.rule")
+            raise LedgerbandError(
+                f"expectation suite {path}: expectation #{i + 1} ({exp.get('type')}) has no meta.rule"
+            )
         if rule in seen:
             raise LedgerbandError(f"expectation suite {path}: rule name {rule!r} is used twice")
         seen.add(rule)
@@ -86,7 +88,6 @@ def read_suite(name: str, directory: Path = EXPECTATIONS_DIR) -> SuiteParts:
 def _gx():
     """One ephemeral GX context and pandas asset per process (GX imports in ~5 s: import lazily)."""
     import great_expectations as gx
-
     from great_expectations.data_context.types.base import ProgressBarsConfig
 
     logging.getLogger("great_expectations").setLevel(logging.WARNING)
@@ -96,7 +97,9 @@ def _gx():
     return gx, context, asset.add_batch_definition_whole_dataframe("whole_frame")
 
 
-def _run(suite_name: str, expectations: list[dict], frame: pd.DataFrame, params: dict | None = None) -> list[Any]:
+def _run(
+    suite_name: str, expectations: list[dict], frame: pd.DataFrame, params: dict | None = None
+) -> list[Any]:
     """Validate `frame` against `expectations`; returns GX results. Raises if any rule could not be evaluated."""
     if not expectations:
         return []
@@ -111,8 +114,10 @@ def _run(suite_name: str, expectations: list[dict], frame: pd.DataFrame, params:
     result = batch.validate(suite, expectation_parameters=params or {}, result_format=RESULT_FORMAT)
     for r in result.results:
         info = r.exception_info or {}
-        raised = info.get("raised_exception") if "raised_exception" in info else any(
-            isinstance(v, dict) and v.get("raised_exception") for v in info.values()
+        raised = (
+            info.get("raised_exception")
+            if "raised_exception" in info
+            else any(isinstance(v, dict) and v.get("raised_exception") for v in info.values())
         )
         if raised:
             message = info.get("exception_message") or next(
@@ -130,9 +135,12 @@ def check_table_columns(suite_name: str, columns: list[str], source: str) -> Non
     frame = pd.DataFrame({c: pd.Series([], dtype="str") for c in columns})
     for r in _run(f"{suite_name}.table", parts.table, frame):
         if not r.success:
-            details = (r.result or {}).get("details", {}).get("mismatched") or {"observed": r.result.get("observed_value")}
+            details = (r.result or {}).get("details", {}).get("mismatched") or {
+                "observed": r.result.get("observed_value")
+            }
             raise GateStopped(
-                "quality", f"{source}: line 1 (header) breaks rule {r.expectation_config.meta['rule']}: {details}"
+                "quality",
+                f"{source}: line 1 (header) breaks rule {r.expectation_config.meta['rule']}: {details}",
             )
 
 
@@ -165,12 +173,15 @@ order by source_line
 """
 
 
-def validate_load(con: duckdb.DuckDBPyConnection, load_id: str, settings: Settings, suite_name: str = "ledger_lines") -> ValidationSummary:
+def validate_load(
+    con: duckdb.DuckDBPyConnection, load_id: str, settings: Settings, suite_name: str = "ledger_lines"
+) -> ValidationSummary:
     """Run the ledger suite on one load and quarantine the records that break a row-level rule."""
     from tasks.demo_data import LEDGER_COLUMNS
 
     row = con.execute(
-        "select source_file, period, rows_in_file, rows_quarantined from ops.loads where load_id = ?", [load_id]
+        "select source_file, period, rows_in_file, rows_quarantined from ops.loads where load_id = ?",
+        [load_id],
     ).fetchall()
     if not row:
         raise LedgerbandError(f"no load {load_id} in ops.loads")
@@ -195,9 +206,14 @@ def validate_load(con: duckdb.DuckDBPyConnection, load_id: str, settings: Settin
         collect(_run(f"{suite_name}.row", parts.row, batch.to_pandas(), params))
     for exp in parts.whole_column:
         column = exp["kwargs"]["column"]
-        frame = con.sql(
-            f'select source_line, "{column}" from raw.ledger_lines where load_id = $load_id', params={"load_id": load_id}
-        ).to_arrow_table().to_pandas()
+        frame = (
+            con.sql(
+                f'select source_line, "{column}" from raw.ledger_lines where load_id = $load_id',
+                params={"load_id": load_id},
+            )
+            .to_arrow_table()
+            .to_pandas()
+        )
         collect(_run(f"{suite_name}.whole", [exp], frame))
 
     order = {rule: i for i, rule in enumerate(parts.rule_names)}
@@ -209,15 +225,22 @@ def validate_load(con: duckdb.DuckDBPyConnection, load_id: str, settings: Settin
                 "source_file": source_file,
                 "source_line": line,
                 "failed_rules": sorted(rules, key=order.__getitem__),
-                "reason": f"line {line}: " + "; ".join(
-                    f"{rule} ({rules[rule]})" for rule in sorted(rules, key=order.__getitem__)
-                ),
+                "reason": f"line {line}: "
+                + "; ".join(f"{rule} ({rules[rule]})" for rule in sorted(rules, key=order.__getitem__)),
                 "raw_record": None,
                 "quarantined_at": now,
             }
             for line, rules in sorted(failures.items())
         ],
-        columns=["load_id", "source_file", "source_line", "failed_rules", "reason", "raw_record", "quarantined_at"],
+        columns=[
+            "load_id",
+            "source_file",
+            "source_line",
+            "failed_rules",
+            "reason",
+            "raw_record",
+            "quarantined_at",
+        ],
     )
     con.execute("begin transaction")
     try:
@@ -236,7 +259,9 @@ def validate_load(con: duckdb.DuckDBPyConnection, load_id: str, settings: Settin
         total_quarantined = con.execute(
             "select count(*)::bigint from quarantine.ledger_lines where load_id = ?", [load_id]
         ).fetchall()[0][0]
-        con.execute("update ops.loads set rows_quarantined = ? where load_id = ?", [total_quarantined, load_id])
+        con.execute(
+            "update ops.loads set rows_quarantined = ? where load_id = ?", [total_quarantined, load_id]
+        )
         con.execute("commit")
     except Exception:
         con.execute("rollback")

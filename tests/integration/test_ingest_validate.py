@@ -76,7 +76,9 @@ def test_manifest_row_count_mismatch_stops_and_names_file_and_rule(con, settings
     data["row_count"] = 6
     path.write_text(json.dumps(data))
     [manifest] = find_manifests(landing, "2026-10")
-    with pytest.raises(GateStopped, match="ledger-2026-10.csv: rule manifest_row_count: file has 5 data records"):
+    with pytest.raises(
+        GateStopped, match="ledger-2026-10.csv: rule manifest_row_count: file has 5 data records"
+    ):
         load_extract(con, manifest, "run-1")
     # Nothing is lost: the rows stay in raw under a rejected load, with the reason.
     assert con.execute("select status, rows_loaded from ops.loads").fetchall() == [("rejected", 5)]

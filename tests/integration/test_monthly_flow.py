@@ -30,8 +30,9 @@ def demo(home):
 
     get_settings.cache_clear()
     s = get_settings()
-    return generate(s.demo_landing_dir, s.demo_answers_path, customers=CUSTOMERS, months=3, end_period="2026-10",
-                    seed=11)
+    return generate(
+        s.demo_landing_dir, s.demo_answers_path, customers=CUSTOMERS, months=3, end_period="2026-10", seed=11
+    )
 
 
 @pytest.fixture(scope="module")
@@ -51,8 +52,9 @@ def _q(home: Path, query: str, params=None):
 
 def test_a_month_publishes_one_band_row_per_customer(home, first_run):
     assert first_run["status"] == "published"
-    assert _q(home, "select count(*), count(distinct customer_id) from published.income_bands") == [(CUSTOMERS,
-                                                                                                      CUSTOMERS)]
+    assert _q(home, "select count(*), count(distinct customer_id) from published.income_bands") == [
+        (CUSTOMERS, CUSTOMERS)
+    ]
     # Published totals equal feature totals: every customer of the reference file is banded once.
     assert _q(home, "select sum(customer_count) from published.band_summary") == [(CUSTOMERS,)]
     sources = dict(_q(home, "select band_source, count(*) from published.income_bands group by all"))
@@ -61,11 +63,20 @@ def test_a_month_publishes_one_band_row_per_customer(home, first_run):
 
 
 def test_every_stage_is_recorded_in_ops_runs(home, first_run):
-    [(status, stages)] = _q(home, "select status, stages from ops.runs where run_id = ?", [first_run["run_id"]])
+    [(status, stages)] = _q(
+        home, "select status, stages from ops.runs where run_id = ?", [first_run["run_id"]]
+    )
     stages = json.loads(stages)
     assert status == "published"
-    assert [s["stage"] for s in stages] == ["ingest", "validate", "features", "train", "accuracy_gate", "publish",
-                                            "report"]
+    assert [s["stage"] for s in stages] == [
+        "ingest",
+        "validate",
+        "features",
+        "train",
+        "accuracy_gate",
+        "publish",
+        "report",
+    ]
     assert all(s["status"] == "ok" and s["seconds"] is not None for s in stages)
 
 
@@ -105,8 +116,11 @@ def test_saved_model_reloads_and_reproduces_the_estimates(home, first_run):
     model = load_model(folder / "model.skops")
     con = duckdb.connect(str(home / "warehouse.duckdb"), read_only=True)
     frame = model_frame(con)
-    stored = dict(con.execute("select customer_id, estimate from ml.predictions where run_id = ?",
-                              [first_run["run_id"]]).fetchall())
+    stored = dict(
+        con.execute(
+            "select customer_id, estimate from ml.predictions where run_id = ?", [first_run["run_id"]]
+        ).fetchall()
+    )
     con.close()
     again = np.clip(model.predict(frame[card["features"]]), 0, None)
     assert np.allclose(again, frame["customer_id"].map(stored).to_numpy())
@@ -130,8 +144,10 @@ def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(home, first_
     current = _q(home, "select run_id from published.snapshots where is_current")
     monkeypatch.setenv("LEDGERBAND_ACCURACY__MIN_BAND_ACCURACY", "0.999")
     get_settings.cache_clear()
-    with pytest.raises(GateStopped, match="accuracy gate stopped the run: .*band accuracy .* < accuracy.min_band_"
-                                          "accuracy 99.90%"):
+    with pytest.raises(
+        GateStopped,
+        match="accuracy gate stopped the run: .*band accuracy .* < accuracy.min_band_accuracy 99.90%",
+    ):
         monthly_run("2026-10", demo.landing_dir)
     assert _q(home, "select run_id from published.snapshots where is_current") == current
     [(status, error)] = _q(home, "select status, error from ops.runs order by started_at desc limit 1")
@@ -150,8 +166,11 @@ def test_bad_extract_stops_the_run_at_the_quality_gate(home, first_run, monkeypa
     monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path / "state"))
     monkeypatch.setenv("LEDGERBAND_FEATURES__WINDOW_MONTHS", "1")
     get_settings.cache_clear()
-    with pytest.raises(GateStopped, match="quality gate stopped the run: .*ledger-2026-10.csv: quarantined share "
-                                          "85.71% \\(6 of 7 records\\)"):
+    with pytest.raises(
+        GateStopped,
+        match="quality gate stopped the run: .*ledger-2026-10.csv: quarantined share "
+        "85.71% \\(6 of 7 records\\)",
+    ):
         monthly_run("2026-10", landing)
     assert _q(tmp_path / "state", "select status from ops.runs") == [("stopped",)]
     assert _q(tmp_path / "state", "select status from ops.loads where dataset = 'ledger'") == [("rejected",)]

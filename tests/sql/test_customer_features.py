@@ -19,7 +19,9 @@ def _features(con):
 def test_behaviour_features_from_a_small_ledger(con, ledger):
     ledger.add("C1", date(2026, 8, 3), 40.0, merchant_region="North Reach", balance_after=900.0)
     ledger.add("C1", date(2026, 8, 3), 150.0, merchant_region="South Reach", balance_after=750.0)
-    ledger.add("C1", date(2026, 9, 10), 100.0, merchant_region="South Reach", balance_after=650.0)  # not > 100
+    ledger.add(
+        "C1", date(2026, 9, 10), 100.0, merchant_region="South Reach", balance_after=650.0
+    )  # not > 100
     ledger.add("C1", date(2026, 10, 1), 60.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT", balance_after=710.0)
     ledger.pay("C1", [date(2026, 8, 28), date(2026, 9, 28)], 3000.0, balance_after=3710.0)  # excluded
     ledger.load()
@@ -63,7 +65,12 @@ def test_customer_without_transactions_gets_zero_counts(con, ledger):
 
 @pytest.mark.parametrize(
     "birth",
-    ["1980-10-31", "1980-11-01", "2000-02-29", "1966-01-01"],  # birthday on, a day after the window end, leap day, plain
+    [
+        "1980-10-31",
+        "1980-11-01",
+        "2000-02-29",
+        "1966-01-01",
+    ],  # birthday on, a day after the window end, leap day, plain
 )
 def test_age_at_window_end_matches_dateutil(con, ledger, birth):
     # Reference: dateutil.relativedelta gives completed years between two dates.

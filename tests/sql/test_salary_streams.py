@@ -5,7 +5,6 @@ from datetime import date
 import pytest
 
 from tasks.warehouse import run_sql_file
-
 from tests.sql.sqlkit import WINDOW, every
 
 

@@ -9,8 +9,10 @@ def test_quarantined_records_do_not_reach_staging(con, ledger):
     ledger.add("C1", date(2026, 10, 1), 10.0)
     ledger.add("C1", date(2026, 10, 2), 20.0)
     ledger.load()
-    con.execute("insert into quarantine.ledger_lines values ('L1', 'f.csv', 3, ['amount_format'], 'x', null, ?)",
-                [datetime.now()])
+    con.execute(
+        "insert into quarantine.ledger_lines values ('L1', 'f.csv', 3, ['amount_format'], 'x', null, ?)",
+        [datetime.now()],
+    )
     run_sql_file(con, "staging", "transactions")
     assert con.execute("select txn_id from staging.transactions").fetchall() == [("T00001",)]
 
@@ -25,7 +27,9 @@ def test_a_txn_id_sent_twice_keeps_its_first_booking(con, ledger):
     ledger.add("C1", date(2026, 10, 1), 10.0, txn_id="DUP")
     ledger.add("C1", date(2026, 10, 2), 99.0, txn_id="DUP")
     ledger.load()
-    assert con.execute("select amount::double, source_line from staging.transactions").fetchall() == [(10.0, 2)]
+    assert con.execute("select amount::double, source_line from staging.transactions").fetchall() == [
+        (10.0, 2)
+    ]
 
 
 def test_payroll_is_recognised_by_purpose_or_sub_family(con, ledger):
@@ -33,8 +37,14 @@ def test_payroll_is_recognised_by_purpose_or_sub_family(con, ledger):
     ledger.add("C1", date(2026, 10, 1), 1.0, "CRDT", purpose_code="SALA", bank_txn_code="PMNT/RCDT/DMCT")
     ledger.add("C1", date(2026, 10, 1), 2.0, "CRDT", bank_txn_code="PMNT/RCDT/SALA")
     ledger.add("C1", date(2026, 10, 1), 3.0, "CRDT", purpose_code="PENS", bank_txn_code="PMNT/RCDT/DMCT")
-    ledger.add("C1", date(2026, 10, 1), 4.0, "DBIT", purpose_code="SALA", bank_txn_code="PMNT/ICDT/SALA")  # paying staff
-    ledger.add("C1", date(2026, 10, 1), 5.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT")  # no purpose code: false, not null
+    ledger.add(
+        "C1", date(2026, 10, 1), 4.0, "DBIT", purpose_code="SALA", bank_txn_code="PMNT/ICDT/SALA"
+    )  # paying staff
+    ledger.add(
+        "C1", date(2026, 10, 1), 5.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT"
+    )  # no purpose code: false, not null
     ledger.load()
-    got = con.execute("select amount::double, is_payroll_coded from staging.transactions order by amount").fetchall()
+    got = con.execute(
+        "select amount::double, is_payroll_coded from staging.transactions order by amount"
+    ).fetchall()
     assert got == [(1.0, True), (2.0, True), (3.0, False), (4.0, False), (5.0, False)]

@@ -47,12 +47,21 @@ def test_published_band_sql_agrees_with_python_at_every_edge(con):
     for i, v in enumerate(values):
         # Odd rows carry an observed salary (which wins over the estimate), even rows only an estimate.
         observed = v if i % 2 else None
-        con.execute("insert into ml.predictions values ('r1', ?, ?, null, ?)", [f"C{i}", 1.0 if observed else v, observed])
-    _insert_from_file(con, "published.income_bands_history", "income_bands",
-                      {"run_id": "r1", "period": "2026-10", "model_version": "m", "published_at": datetime(2026, 11, 2)})
+        con.execute(
+            "insert into ml.predictions values ('r1', ?, ?, null, ?)",
+            [f"C{i}", 1.0 if observed else v, observed],
+        )
+    _insert_from_file(
+        con,
+        "published.income_bands_history",
+        "income_bands",
+        {"run_id": "r1", "period": "2026-10", "model_version": "m", "published_at": datetime(2026, 11, 2)},
+    )
     got = con.execute(
         "select customer_id, income_band, band_source from published.income_bands_history order by customer_id"
     ).fetchall()
     expected_index = assign_band_index(values, EDGES)
     assert [g[1] for g in got] == [f"B{k + 1}" for k in expected_index]
-    assert [g[2] for g in got] == ["model_estimate" if i % 2 == 0 else "observed_salary" for i in range(len(values))]
+    assert [g[2] for g in got] == [
+        "model_estimate" if i % 2 == 0 else "observed_salary" for i in range(len(values))
+    ]

@@ -13,13 +13,20 @@ from tasks.demo_data import LEDGER_COLUMNS, generate
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
     root = tmp_path_factory.mktemp("demo")
-    return generate(root / "landing", root / "answers" / "true_income.csv", customers=200, months=2,
-                    end_period="2026-10", seed=3)
+    return generate(
+        root / "landing",
+        root / "answers" / "true_income.csv",
+        customers=200,
+        months=2,
+        end_period="2026-10",
+        seed=3,
+    )
 
 
 def test_same_seed_gives_byte_identical_extracts(demo, tmp_path):
-    again = generate(tmp_path / "landing", tmp_path / "answers.csv", customers=200, months=2, end_period="2026-10",
-                     seed=3)
+    again = generate(
+        tmp_path / "landing", tmp_path / "answers.csv", customers=200, months=2, end_period="2026-10", seed=3
+    )
     for a, b in zip(demo.extracts, again.extracts, strict=True):
         assert a.read_bytes() == b.read_bytes()
 
@@ -34,7 +41,9 @@ def test_manifest_matches_the_file_it_describes(demo):
         assert list(rows[0].keys()) == list(LEDGER_COLUMNS)
         assert manifest["row_count"] == len(rows)
         for direction, key in (("CRDT", "credit_total"), ("DBIT", "debit_total")):
-            assert Decimal(manifest[key]) == sum(Decimal(r["amount"]) for r in rows if r["direction"] == direction)
+            assert Decimal(manifest[key]) == sum(
+                Decimal(r["amount"]) for r in rows if r["direction"] == direction
+            )
 
 
 def test_payroll_never_lands_on_a_weekend(demo):

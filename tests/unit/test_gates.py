@@ -5,9 +5,15 @@ from tasks.settings import Settings
 
 
 def _validation(quarantined: int, rows: int = 1000) -> dict:
-    return {"load_id": "L1", "source_file": "/landing/2026-10/ledger-2026-10.csv", "rows_in_file": rows,
-            "rows_quarantined": quarantined, "quarantined_share": quarantined / rows,
-            "rule_counts": {"amount_format": quarantined}, "examples": ["line 17: amount_format (amount='1.5')"]}
+    return {
+        "load_id": "L1",
+        "source_file": "/landing/2026-10/ledger-2026-10.csv",
+        "rows_in_file": rows,
+        "rows_quarantined": quarantined,
+        "quarantined_share": quarantined / rows,
+        "rule_counts": {"amount_format": quarantined},
+        "examples": ["line 17: amount_format (amount='1.5')"],
+    }
 
 
 def test_quality_gate_passes_at_exactly_the_threshold():
@@ -17,14 +23,28 @@ def test_quality_gate_passes_at_exactly_the_threshold():
 def test_quality_gate_stop_names_file_figure_threshold_and_rule():
     d = quality_gate([_validation(11)], Settings())
     assert not d.passed
-    for part in ("ledger-2026-10.csv", "1.10%", "quality.max_quarantine_share 1.00%", "amount_format (11)", "line 17"):
+    for part in (
+        "ledger-2026-10.csv",
+        "1.10%",
+        "quality.max_quarantine_share 1.00%",
+        "amount_format (11)",
+        "line 17",
+    ):
         assert part in d.reason
 
 
 def _train(**changes) -> dict:
-    base = {"n_labelled": 1500, "champion": "linear_regression", "baseline_rmse": 20_000.0,
-            "champion_rmse": 10_000.0, "champion_mae": 7_000.0, "skill_over_baseline": 0.5,
-            "band_accuracy": 0.6, "within_one_band": 0.95, "note": None}
+    base = {
+        "n_labelled": 1500,
+        "champion": "linear_regression",
+        "baseline_rmse": 20_000.0,
+        "champion_rmse": 10_000.0,
+        "champion_mae": 7_000.0,
+        "skill_over_baseline": 0.5,
+        "band_accuracy": 0.6,
+        "within_one_band": 0.95,
+        "note": None,
+    }
     return {**base, **changes}
 
 
@@ -34,13 +54,16 @@ def test_accuracy_gate_passes_a_good_champion():
 
 
 def test_accuracy_gate_reports_every_failing_condition():
-    d = accuracy_gate(_train(n_labelled=50, skill_over_baseline=0.1, band_accuracy=0.3, within_one_band=0.8),
-                      Settings())
+    d = accuracy_gate(
+        _train(n_labelled=50, skill_over_baseline=0.1, band_accuracy=0.3, within_one_band=0.8), Settings()
+    )
     assert not d.passed
-    for part in ("labelled customers 50 < accuracy.min_labelled_customers 200",
-                 "RMSE skill over the predict-the-mean baseline 10.00% < accuracy.min_skill_over_baseline 20.00%",
-                 "band accuracy 30.00% < accuracy.min_band_accuracy 45.00%",
-                 "within-one-band rate 80.00% < accuracy.min_within_one_band 85.00%"):
+    for part in (
+        "labelled customers 50 < accuracy.min_labelled_customers 200",
+        "RMSE skill over the predict-the-mean baseline 10.00% < accuracy.min_skill_over_baseline 20.00%",
+        "band accuracy 30.00% < accuracy.min_band_accuracy 45.00%",
+        "within-one-band rate 80.00% < accuracy.min_within_one_band 85.00%",
+    ):
         assert part in d.reason
 
 

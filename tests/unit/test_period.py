@@ -17,7 +17,9 @@ def test_window_runs_oldest_first_across_a_year_end():
     assert [str(p) for p in Period.parse("2027-01").window(3)] == ["2026-11", "2026-12", "2027-01"]
 
 
-@pytest.mark.parametrize("text", ["2026-13", "2026-1", "26-10", "", "2026/10"])  # month out of range, no zero pad, short year, empty, wrong separator
+@pytest.mark.parametrize(
+    "text", ["2026-13", "2026-1", "26-10", "", "2026/10"]
+)  # month out of range, no zero pad, short year, empty, wrong separator
 def test_bad_period_text_is_a_clear_user_error(text):
     with pytest.raises(LedgerbandError, match="YYYY-MM"):
         Period.parse(text)

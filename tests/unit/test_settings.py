@@ -6,7 +6,9 @@ from tasks.settings import Settings, TrainSettings
 
 def test_misspelt_environment_variable_fails_loudly(monkeypatch):
     monkeypatch.setenv("LEDGERBAND_QUALTY__MAX_QUARANTINE_SHARE", "0.5")
-    with pytest.raises(ValueError, match="LEDGERBAND_QUALTY__MAX_QUARANTINE_SHARE is not a ledgerband setting"):
+    with pytest.raises(
+        ValueError, match="LEDGERBAND_QUALTY__MAX_QUARANTINE_SHARE is not a ledgerband setting"
+    ):
         Settings()
 
 
@@ -23,7 +25,9 @@ def test_misspelt_key_in_the_toml_file_fails(tmp_path, monkeypatch):
         Settings()
 
 
-@pytest.mark.parametrize("feature", ["sex", "age_years"])  # the two protected attributes features.customer carries
+@pytest.mark.parametrize(
+    "feature", ["sex", "age_years"]
+)  # the two protected attributes features.customer carries
 def test_protected_attribute_as_a_feature_is_refused_by_default(feature):
     with pytest.raises(ValidationError, match="protected attributes"):
         TrainSettings(categorical_features=("home_region", feature))
