@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import logging
 from pathlib import Path
 from typing import Annotated
 
@@ -24,8 +25,41 @@ err = Console(stderr=True)
 
 def _fail(exc: Exception) -> None:
     code = getattr(exc, "exit_code", 1)
-    err.print(f"[bold red]ledgerband: {exc}[/]")
+    err.print(f"[bold red]ledgerband: {exc}[/]", soft_wrap=True)
     raise typer.Exit(code)
+
+
+class _ExpectedFailureFilter(logging.Filter):
+    """Keep Prefect's console quiet about failures the CLI explains itself (bad input, a stopped gate).
+
+    Only the console is filtered: the records still reach the Prefect API, and any other exception is
+    logged with its traceback as usual.
+    """
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        exc = record.exc_info[1] if record.exc_info else None
+        if isinstance(exc, LedgerbandError):
+            return False
+        message = record.getMessage()
+        return not any(f"{name}(" in message or f"{name}:" in message for name in _expected_error_names())
+
+
+def _expected_error_names() -> set[str]:
+    names, todo = set(), [LedgerbandError]
+    while todo:
+        cls = todo.pop()
+        names.add(cls.__name__)
+        todo.extend(cls.__subclasses__())
+    return names
+
+
+def _quiet_expected_failures() -> None:
+    from prefect.logging.handlers import PrefectConsoleHandler
+
+    for name in ("", "prefect", "prefect.flow_runs", "prefect.task_runs"):
+        for handler in logging.getLogger(name).handlers:
+            if isinstance(handler, PrefectConsoleHandler):
+                handler.addFilter(_ExpectedFailureFilter())
 
 
 def _settings():
@@ -58,6 +92,7 @@ def _print_result(result: dict) -> None:
 
 
 def _run_guarded(fn, *args, **kwargs) -> dict:
+    _quiet_expected_failures()
     try:
         return fn(*args, **kwargs)
     except LedgerbandError as exc:
@@ -99,6 +134,12 @@ def run(
 ) -> None:
     """Run the monthly flow for one period on the files in the landing folder."""
     s = _settings()
+    from tasks.warehouse import Period
+
+    try:
+        Period.parse(period)
+    except LedgerbandError as exc:
+        _fail(exc)
     landing = landing or s.landing
     if not landing.is_dir():
         _fail(LedgerbandError(f"landing folder {landing} does not exist"))
@@ -131,18 +172,35 @@ def status(limit: Annotated[int, typer.Option(help="How many recent runs to show
             )
         )
     rows = con.execute(
-        "select run_id, period, started_at, finished_at, status, error, stages from ops.runs "
+        "select run_id, period, started_at, status, error, stages, gate_figures from ops.runs "
         "order by started_at desc limit ?",
         [limit],
     ).fetchall()
     con.close()
-    table = Table(title="Recent runs")
-    for col in ("started", "period", "status", "stages", "run id", "why"):
-        table.add_column(col)
-    for run_id, period, started, _finished, st, error, stages in rows:
-        stage_text = " ".join(f"{x['stage']}:{x['status']}" for x in json.loads(stages or "[]"))
-        table.add_row(str(started)[:19], period, st, stage_text, run_id[:8], (error or "")[:160])
-    out.print(table)
+    out.print(f"Recent runs in {s.warehouse_path}:")
+    colour = {"published": "green", "withheld": "yellow", "stopped": "red", "failed": "red"}
+    for run_id, period, started, st, error, stages, gates in rows:
+        summary = _stage_summary(json.loads(stages or "[]"))
+        out.print(
+            f"{str(started)[:19]}  {period}  [{colour.get(st, 'white')}]{st:<9}[/]  {summary:<32}  run {run_id}",
+            soft_wrap=True,
+            highlight=False,
+        )
+        accuracy = json.loads(gates or "{}").get("accuracy", {})
+        detail = error or accuracy.get("reason")
+        if detail:
+            out.print(f"    {detail}", soft_wrap=True, highlight=False)
+
+
+def _stage_summary(stages: list[dict]) -> str:
+    """'7/7 ok', or where the run ended: 'validate stopped (2/7)'."""
+    done = sum(1 for x in stages if x["status"] == "ok")
+    last = stages[-1] if stages else None
+    if last is None:
+        return "-"
+    if all(x["status"] == "ok" for x in stages):
+        return f"{done} ok"
+    return f"{last['stage']} {last['status']} after {done} ok"
 
 
 def main() -> None:  # pragma: no cover

@@ -91,6 +91,8 @@ def _gx():
     from great_expectations.data_context.types.base import ProgressBarsConfig
 
     logging.getLogger("great_expectations").setLevel(logging.WARNING)
+    # This module pins its own logger to INFO and announces a temporary docs folder on every context.
+    logging.getLogger("great_expectations.data_context.types.base").setLevel(logging.WARNING)
     context = gx.get_context(mode="ephemeral")
     context.variables.progress_bars = ProgressBarsConfig(globally=False)
     asset = context.data_sources.add_pandas("ledgerband_frames").add_dataframe_asset("frame")

@@ -174,3 +174,20 @@ def test_bad_extract_stops_the_run_at_the_quality_gate(home, first_run, monkeypa
         monthly_run("2026-10", landing)
     assert _q(tmp_path / "state", "select status from ops.runs") == [("stopped",)]
     assert _q(tmp_path / "state", "select status from ops.loads where dataset = 'ledger'") == [("rejected",)]
+
+
+def test_cli_names_the_missing_period_folder_without_a_traceback(prefect_api, tmp_path, monkeypatch):
+    from typer.testing import CliRunner
+
+    from flows.cli import app
+    from tasks.settings import get_settings
+
+    monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path / "state"))
+    get_settings.cache_clear()
+    (tmp_path / "landing").mkdir()
+    result = CliRunner().invoke(app, ["run", "--period", "2026-10", "--landing", str(tmp_path / "landing")])
+    assert result.exit_code == 2
+    assert (
+        f"no landing folder for period 2026-08: expected {tmp_path / 'landing' / '2026-08'}" in result.output
+    )
+    assert "Traceback" not in result.output

@@ -1,0 +1,40 @@
+"""The CLI turns user mistakes into one clear line and a non-zero exit code, never a traceback."""
+
+import pytest
+from typer.testing import CliRunner
+
+from flows.cli import app
+
+runner = CliRunner()
+
+
+@pytest.fixture(autouse=True)
+def _home(tmp_path, monkeypatch):
+    monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path / "state"))
+
+
+def _run(*args):
+    result = runner.invoke(app, list(args))
+    return result.exit_code, result.output
+
+
+def test_bad_period_is_refused_before_anything_starts(tmp_path):
+    code, output = _run("run", "--period", "2026-13", "--landing", str(tmp_path))
+    assert code == 2 and "period '2026-13' is not a month written YYYY-MM" in output
+    assert "Traceback" not in output
+
+
+def test_missing_landing_folder_is_named(tmp_path):
+    code, output = _run("run", "--period", "2026-10", "--landing", str(tmp_path / "nowhere"))
+    assert code == 2 and f"landing folder {tmp_path / 'nowhere'} does not exist" in output
+
+
+def test_status_before_any_run_says_what_to_do():
+    code, output = _run("status")
+    assert code == 2 and "no warehouse yet" in output and "ledgerband demo" in output
+
+
+def test_misspelt_setting_is_a_configuration_error(monkeypatch):
+    monkeypatch.setenv("LEDGERBAND_ACURACY__MIN_BAND_ACCURACY", "0.5")
+    code, output = _run("status")
+    assert code == 2 and "configuration error" in output and "LEDGERBAND_ACURACY__MIN_BAND_ACCURACY" in output
