@@ -10,7 +10,6 @@ an answer file the pipeline never reads.
 
 from __future__ import annotations
 
-import hashlib
 import json
 from dataclasses import dataclass
 from datetime import date, timedelta
@@ -23,24 +22,8 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
+from tasks.contract import CUSTOMER_COLUMNS, sha256_file
 from tasks.warehouse import Period
-
-LEDGER_COLUMNS = (
-    "txn_id",
-    "account_id",
-    "customer_id",
-    "booking_date",
-    "amount",
-    "direction",
-    "currency",
-    "balance_after",
-    "bank_txn_code",
-    "purpose_code",
-    "counterparty_id",
-    "merchant_category",
-    "merchant_region",
-)
-CUSTOMER_COLUMNS = ("customer_id", "birth_date", "sex", "home_region", "opened_date")
 
 REGIONS = (
     "Corrandale Central",
@@ -351,14 +334,6 @@ def _format_cents(cents: pd.Series) -> pd.Series:
     )
 
 
-def _sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with path.open("rb") as f:
-        for block in iter(lambda: f.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
-
-
 def generate(
     landing_dir: Path,
     answers_path: Path,
@@ -460,7 +435,7 @@ def generate(
             "period": str(p),
             "institution": institution,
             "file": path.name,
-            "sha256": _sha256(path),
+            "sha256": sha256_file(path),
             "row_count": int(len(out)),
             "credit_total": str(Decimal(credit) / 100),
             "debit_total": str(Decimal(debit) / 100),

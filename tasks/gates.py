@@ -16,7 +16,7 @@ from prefect import task
 from prefect.cache_policies import NO_CACHE
 
 from tasks.settings import Settings
-from tasks.warehouse import open_warehouse
+from tasks.warehouse import open_warehouse, transaction
 
 
 @dataclass
@@ -157,10 +157,9 @@ def quality_gate_task(
 ) -> dict:
     decision = quality_gate(validations, settings)
     with open_warehouse(warehouse) as con:
-        con.execute("begin transaction")
-        record_decision(con, run_id, period, decision)
-        settle_loads(con, validations, decision)
-        con.execute("commit")
+        with transaction(con):
+            record_decision(con, run_id, period, decision)
+            settle_loads(con, validations, decision)
     return decision.to_dict()
 
 

@@ -8,7 +8,6 @@ amount totals are reconciled before anything downstream sees the rows.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import re
 import uuid
@@ -25,9 +24,9 @@ import pyarrow.parquet as pq
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
-from tasks.demo_data import CUSTOMER_COLUMNS, LEDGER_COLUMNS
+from tasks.contract import CUSTOMER_COLUMNS, LEDGER_COLUMNS, sha256_file
 from tasks.errors import ExtractError, GateStopped
-from tasks.warehouse import Period, open_warehouse, scalar
+from tasks.warehouse import Period, open_warehouse, scalar, transaction
 
 MANIFEST_FIELDS = ("period", "institution", "file", "sha256", "row_count", "credit_total", "debit_total")
 _DECIMAL_TEXT = re.compile(r"^-?\d+(\.\d+)?$")
@@ -64,14 +63,6 @@ class LoadSummary:
 
     def to_dict(self) -> dict:
         return asdict(self)
-
-
-def sha256_file(path: Path) -> str:
-    h = hashlib.sha256()
-    with path.open("rb") as f:
-        for block in iter(lambda: f.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
 
 
 def read_manifest(path: Path) -> Manifest:
@@ -234,6 +225,26 @@ def _check_header(path: Path, header: list[str], expected: tuple[str, ...], suit
         )
 
 
+def _insert_records(
+    con: duckdb.DuckDBPyConnection,
+    target: str,
+    records: Records,
+    columns: tuple[str, ...],
+    load_id: str,
+    path: Path,
+) -> None:
+    con.register("incoming_records", records.table)
+    try:
+        cols = ", ".join(columns)
+        con.execute(
+            f"insert into {target} (load_id, source_file, source_line, {cols}) "
+            f"select ?, ?, source_line, {cols} from incoming_records",
+            [load_id, str(path)],
+        )
+    finally:
+        con.unregister("incoming_records")
+
+
 def _new_load_id() -> str:
     return datetime.now().strftime("%Y%m%dT%H%M%S") + "-" + uuid.uuid4().hex[:8]
 
@@ -293,17 +304,9 @@ def load_extract(con: duckdb.DuckDBPyConnection, manifest: Manifest, run_id: str
 
     load_id = _new_load_id()
     now = datetime.now()
-    con.execute("begin transaction")
-    try:
+    with transaction(con):
         _forget_unaccepted(con, sha, "ledger")
-        con.register("arrow_rows", records.table)
-        cols = ", ".join(LEDGER_COLUMNS)
-        con.execute(
-            f"insert into raw.ledger_lines (load_id, source_file, source_line, {cols}) "
-            f"select ?, ?, source_line, {cols} from arrow_rows",
-            [load_id, str(path)],
-        )
-        con.unregister("arrow_rows")
+        _insert_records(con, "raw.ledger_lines", records, LEDGER_COLUMNS, load_id, path)
         for line, text, reason in records.malformed:
             con.execute(
                 "insert into quarantine.ledger_lines values (?, ?, ?, ['record_field_count'], ?, ?, ?)",
@@ -351,10 +354,6 @@ def load_extract(con: duckdb.DuckDBPyConnection, manifest: Manifest, run_id: str
                 now if problems else None,
             ],
         )
-        con.execute("commit")
-    except Exception:
-        con.execute("rollback")
-        raise
     if problems:
         raise GateStopped("quality", f"{path}: " + "; ".join(problems))
     return LoadSummary(
@@ -418,17 +417,9 @@ def load_customers(con: duckdb.DuckDBPyConnection, path: Path, run_id: str) -> L
         )
     load_id = _new_load_id()
     now = datetime.now()
-    con.execute("begin transaction")
-    try:
+    with transaction(con):
         _forget_unaccepted(con, sha, "customers")
-        con.register("customer_rows", records.table)
-        cols = ", ".join(CUSTOMER_COLUMNS)
-        con.execute(
-            f"insert into raw.customers (load_id, source_file, source_line, {cols}) "
-            f"select ?, ?, source_line, {cols} from customer_rows",
-            [load_id, str(path)],
-        )
-        con.unregister("customer_rows")
+        _insert_records(con, "raw.customers", records, CUSTOMER_COLUMNS, load_id, path)
         con.execute(
             """
             insert into ops.loads (load_id, dataset, source_file, sha256, rows_in_file, rows_loaded,
@@ -437,10 +428,6 @@ def load_customers(con: duckdb.DuckDBPyConnection, path: Path, run_id: str) -> L
             """,
             [load_id, str(path), sha, records.table.num_rows, records.table.num_rows, run_id, now, now],
         )
-        con.execute("commit")
-    except Exception:
-        con.execute("rollback")
-        raise
     return LoadSummary(load_id, str(path), None, "loaded", records.table.num_rows, records.table.num_rows)
 
 

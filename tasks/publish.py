@@ -21,7 +21,7 @@ from prefect.cache_policies import NO_CACHE
 from tasks.bands import write_band_table
 from tasks.errors import LedgerbandError
 from tasks.settings import Settings
-from tasks.warehouse import open_warehouse, sql_file
+from tasks.warehouse import open_warehouse, sql_file, transaction
 
 READER_TABLES = {
     "income_bands": "select * from published.income_bands",
@@ -49,8 +49,7 @@ def publish_snapshot(
         "model_version": model_version,
         "published_at": published_at,
     }
-    con.execute("begin transaction")
-    try:
+    with transaction(con):
         write_band_table(con, settings.bands.edges, settings.bands.currency)
         for table in ("income_bands_history", "band_summary_history", "snapshots"):
             con.execute(f"delete from published.{table} where run_id = ?", [run_id])
@@ -76,10 +75,6 @@ def publish_snapshot(
             "insert into published.snapshots values (?, ?, ?, ?, ?, true, ?)",
             [run_id, period, model_version, json.dumps(list(settings.bands.edges)), band_rows, published_at],
         )
-        con.execute("commit")
-    except Exception:
-        con.execute("rollback")
-        raise
     return {
         "run_id": run_id,
         "customers": int(band_rows),

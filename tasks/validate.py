@@ -26,9 +26,10 @@ import pandas as pd
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
+from tasks.contract import LEDGER_COLUMNS
 from tasks.errors import GateStopped, LedgerbandError, ValidationEngineError
 from tasks.settings import PROJECT_ROOT, Settings
-from tasks.warehouse import Period, open_warehouse
+from tasks.warehouse import Period, open_warehouse, transaction
 
 EXPECTATIONS_DIR = PROJECT_ROOT / "expectations"
 WHOLE_COLUMN_TYPES = frozenset({"expect_column_values_to_be_unique"})
@@ -179,8 +180,6 @@ def validate_load(
     con: duckdb.DuckDBPyConnection, load_id: str, settings: Settings, suite_name: str = "ledger_lines"
 ) -> ValidationSummary:
     """Run the ledger suite on one load and quarantine the records that break a row-level rule."""
-    from tasks.demo_data import LEDGER_COLUMNS
-
     row = con.execute(
         "select source_file, period, rows_in_file, rows_quarantined from ops.loads where load_id = ?",
         [load_id],
@@ -244,8 +243,7 @@ def validate_load(
             "quarantined_at",
         ],
     )
-    con.execute("begin transaction")
-    try:
+    with transaction(con):
         # Rerunning validation on the same load replaces its rule findings (malformed records stay).
         con.execute(
             "delete from quarantine.ledger_lines where load_id = ? and failed_rules <> ['record_field_count']",
@@ -264,10 +262,6 @@ def validate_load(
         con.execute(
             "update ops.loads set rows_quarantined = ? where load_id = ?", [total_quarantined, load_id]
         )
-        con.execute("commit")
-    except Exception:
-        con.execute("rollback")
-        raise
 
     counts: dict[str, int] = defaultdict(int)
     for rules in failures.values():

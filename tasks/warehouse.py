@@ -72,6 +72,18 @@ def open_warehouse(path: Path | str) -> Iterator[duckdb.DuckDBPyConnection]:
         con.close()
 
 
+@contextmanager
+def transaction(con: duckdb.DuckDBPyConnection) -> Iterator[duckdb.DuckDBPyConnection]:
+    """BEGIN … COMMIT; any exception rolls everything back and propagates."""
+    con.execute("begin transaction")
+    try:
+        yield con
+    except BaseException:
+        con.execute("rollback")
+        raise
+    con.execute("commit")
+
+
 def apply_schema(con: duckdb.DuckDBPyConnection) -> None:
     con.execute((WAREHOUSE_DIR / "schema.sql").read_text())
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from datetime import date, datetime, timedelta
 
-from tasks.demo_data import LEDGER_COLUMNS
+from tasks.contract import LEDGER_COLUMNS
 
 
 class Ledger:

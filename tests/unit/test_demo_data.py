@@ -7,7 +7,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from tasks.demo_data import LEDGER_COLUMNS, generate
+from tasks.contract import LEDGER_COLUMNS
+from tasks.demo_data import generate
 
 
 @pytest.fixture(scope="module")

@@ -5,7 +5,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from tasks.demo_data import LEDGER_COLUMNS
+from tasks.contract import LEDGER_COLUMNS
 from tasks.errors import ExtractError
 from tasks.ingest import find_manifests, read_manifest, read_records
 
