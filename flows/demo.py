@@ -6,8 +6,9 @@ from prefect import flow, task
 from prefect.cache_policies import NO_CACHE
 
 from flows.monthly import monthly_run
-from tasks.demo_data import generate
+from tasks.demo_data import generate, truth_check
 from tasks.settings import get_settings
+from tasks.warehouse import open_warehouse
 
 
 @task(name="generate-demo-extracts", cache_policy=NO_CACHE)
@@ -48,4 +49,11 @@ def demo_run(
         file_format or d.file_format,
     )
     result = monthly_run(generated["periods"][-1], generated["landing_dir"])
-    return {"generated": generated, **result}
+    return {"generated": generated, "truth_check": truth_check_task(result["run_id"]), **result}
+
+
+@task(name="demo-truth-check", cache_policy=NO_CACHE)
+def truth_check_task(run_id: str) -> dict:
+    s = get_settings()
+    with open_warehouse(s.warehouse_path) as con:
+        return truth_check(con, s.demo_answers_path, run_id, s.bands.edges)

@@ -457,3 +457,31 @@ def generate(
     return DemoFiles(
         landing_dir, [str(p) for p in periods], extracts, manifests, customers_path, answers_path, len(tx)
     )
+
+
+def truth_check(con, answers_path: Path, run_id: str, edges: tuple[float, ...]) -> dict:
+    """Demo only: compare a run's estimates with the true incomes the generator wrote.
+
+    Cross-validation can only measure customers whose salary is paid here; the customers the model is
+    for (self-employed, pensioners, paid elsewhere) are measured here, which only a synthetic bank allows.
+    """
+    from tasks.bands import assign_band_index
+
+    answers = pd.read_csv(answers_path, dtype={"customer_id": str})
+    pred = con.execute(
+        "select customer_id, estimate, annual_salary from ml.predictions where run_id = ?", [run_id]
+    ).df()
+    m = pred.merge(answers, on="customer_id")
+    estimated = m[m["annual_salary"].isna()]
+    err = estimated["estimate"] - estimated["true_annual_income"]
+    t = assign_band_index(estimated["true_annual_income"], edges)
+    p = assign_band_index(estimated["estimate"], edges)
+    return {
+        "customers_estimated": int(len(estimated)),
+        "rmse": float(np.sqrt(np.mean(err**2))) if len(err) else float("nan"),
+        "mae": float(np.mean(np.abs(err))) if len(err) else float("nan"),
+        "mean_error": float(err.mean()) if len(err) else float("nan"),
+        "mean_true_income": float(estimated["true_annual_income"].mean()) if len(err) else float("nan"),
+        "band_accuracy": float(np.mean(t == p)) if len(err) else float("nan"),
+        "within_one_band": float(np.mean(np.abs(t - p) <= 1)) if len(err) else float("nan"),
+    }

@@ -21,6 +21,8 @@ CAUTIONS = (
     "income and must never replace verified income in a credit, affordability or pricing decision.",
     "Estimates about individuals can be wrong, and wrong in ways that differ between groups of customers. "
     "Read the accuracy figures before using any band, and do not act on one customer's band alone.",
+    "The accuracy figures are measured on customers whose salary is paid here. The customers the model "
+    "estimates (self-employed, pensioners, paid elsewhere) differ from them, so their real error can be larger.",
     "Protected attributes (sex, age, birth date) are not model features by default; the settings refuse "
     "them unless explicitly allowed after review.",
     "Transaction data is personal data. Identifiers here are pseudonymous; keep the published tables "

@@ -56,11 +56,11 @@ class TrainSettings(_Section):
     tree_max_depth: int = Field(6, ge=1)
     tree_min_samples_leaf: int = Field(20, ge=1)
     numeric_features: tuple[str, ...] = (
-        "txn_per_week",
+        "debits_per_week",
         "largest_debit",
         "count_large_debits",
-        "days_with_txn",
-        "mean_txn_amount",
+        "days_with_debit",
+        "mean_debit_amount",
         "median_balance",
         "total_debit_amount",
     )

@@ -23,28 +23,38 @@ def test_behaviour_features_from_a_small_ledger(con, ledger):
         "C1", date(2026, 9, 10), 100.0, merchant_region="South Reach", balance_after=650.0
     )  # not > 100
     ledger.add("C1", date(2026, 10, 1), 60.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT", balance_after=710.0)
-    ledger.pay("C1", [date(2026, 8, 28), date(2026, 9, 28)], 3000.0, balance_after=3710.0)  # excluded
+    ledger.pay("C1", [date(2026, 8, 28), date(2026, 9, 28)], 3000.0, balance_after=3710.0)
     ledger.load()
     f = _features(con)["C1"]
-    assert f["txn_count"] == 4
-    assert f["txn_per_week"] == pytest.approx(4 / (92 / 7))  # 92 days from 1 Aug to 31 Oct
-    assert f["days_with_txn"] == 3
+    assert f["debit_count"] == 3  # credits, payroll or not, are no spending
+    assert f["debits_per_week"] == pytest.approx(3 / (92 / 7))  # 92 days from 1 Aug to 31 Oct
+    assert f["days_with_debit"] == 2
     assert f["largest_debit"] == 150.0
     assert f["count_large_debits"] == 1
     assert f["total_debit_amount"] == 290.0
-    assert f["mean_txn_amount"] == pytest.approx((40 + 150 + 100 + 60) / 4)
-    assert f["median_balance"] == pytest.approx((710 + 750) / 2)  # median of 650, 710, 750, 900
+    assert f["mean_debit_amount"] == pytest.approx(290 / 3)
+    # Median of every posting's balance: 650, 710, 750, 900, 3710, 3710.
+    assert f["median_balance"] == pytest.approx((750 + 900) / 2)
     assert f["top_merchant_region"] == "South Reach"
 
 
-def test_payroll_credits_never_reach_the_features(con, ledger):
-    """The label must not leak: a customer's features are the same with or without their salary."""
+def test_credits_never_reach_the_spending_features(con, ledger):
+    """Income must not leak: payroll is the label, other credits are income of the unlabelled."""
     ledger.add("C1", date(2026, 8, 3), 40.0)
-    ledger.pay("C2", [date(2026, 8, 28)], 3000.0)
     ledger.add("C2", date(2026, 8, 3), 40.0)
+    ledger.pay("C2", [date(2026, 8, 28)], 3000.0)
+    ledger.add("C2", date(2026, 9, 1), 1200.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT")
     ledger.load()
     f = _features(con)
-    keys = ["txn_count", "mean_txn_amount", "largest_debit", "total_debit_amount", "days_with_txn"]
+    keys = [
+        "debit_count",
+        "mean_debit_amount",
+        "largest_debit",
+        "total_debit_amount",
+        "days_with_debit",
+        "count_large_debits",
+        "debits_per_week",
+    ]
     assert [f["C1"][k] for k in keys] == [f["C2"][k] for k in keys]
 
 
@@ -59,7 +69,7 @@ def test_customer_without_transactions_gets_zero_counts(con, ledger):
     ledger.add("C1", date(2026, 8, 3), 10.0)
     ledger.load(customers=[("C1", "1980-01-01", "North Reach"), ("C9", "1990-05-05", "South Reach")])
     f = _features(con)["C9"]
-    assert (f["txn_count"], f["count_large_debits"], f["top_merchant_region"]) == (0, 0, "none")
+    assert (f["debit_count"], f["count_large_debits"], f["top_merchant_region"]) == (0, 0, "none")
     assert f["largest_debit"] is None
 
 

@@ -2,8 +2,11 @@
 -- Grain: one row per customer in the current reference file. Key: customer_id.
 -- Reads: staging.transactions, staging.customers.
 -- Parameters: $window_start, $window_end (dates, inclusive), $large_debit_threshold.
--- Behaviour over the window from every transaction except coded payroll credits, so the label (salary)
--- cannot leak into the features. Customers with no transactions get zero counts and null amounts.
+-- Spending features come from debits only. Credits are left out on purpose: for customers paid here the
+-- income arrives as payroll (the label), for everyone else it arrives as other credits, so any credit
+-- feature would mean one thing in training and another for the customers the model estimates.
+-- median_balance uses every posting: both groups' balances carry their income the same way.
+-- Customers with no debits get zero counts and null amounts.
 -- sex and age_years are carried for error-by-group analysis only; they are not model features.
 
 with
@@ -12,32 +15,36 @@ customers as (
     select * from staging.customers
 ),
 
-transactions as (
+postings as (
     select *
     from staging.transactions
     where booking_date between $window_start and $window_end
-        and not is_payroll_coded
 ),
 
-activity as (
+spending as (
     select
         customer_id,
-        count(*)::bigint as txn_count,
-        count(distinct booking_date)::bigint as days_with_txn,
-        avg(amount)::double as mean_txn_amount,
-        max(amount) filter (where direction = 'DBIT')::double as largest_debit,
-        count(*) filter (where direction = 'DBIT' and amount > $large_debit_threshold)::bigint
-            as count_large_debits,
-        coalesce(sum(amount) filter (where direction = 'DBIT'), 0)::double as total_debit_amount,
-        median(balance_after)::double as median_balance
-    from transactions
+        count(*)::bigint as debit_count,
+        count(distinct booking_date)::bigint as days_with_debit,
+        avg(amount)::double as mean_debit_amount,
+        max(amount)::double as largest_debit,
+        count(*) filter (where amount > $large_debit_threshold)::bigint as count_large_debits,
+        sum(amount)::double as total_debit_amount
+    from postings
+    where direction = 'DBIT'
+    group by customer_id
+),
+
+balances as (
+    select customer_id, median(balance_after)::double as median_balance
+    from postings
     group by customer_id
 ),
 
 region_counts as (
-    select customer_id, merchant_region, count(*) as txn_count
-    from transactions
-    where merchant_region is not null
+    select customer_id, merchant_region, count(*) as debit_count
+    from postings
+    where direction = 'DBIT' and merchant_region is not null
     group by all
 ),
 
@@ -45,7 +52,7 @@ top_region as (
     -- Most frequent merchant region; ties go to the alphabetically first region, so reruns agree.
     select customer_id, merchant_region as top_merchant_region
     from region_counts
-    qualify row_number() over (partition by customer_id order by txn_count desc, merchant_region) = 1
+    qualify row_number() over (partition by customer_id order by debit_count desc, merchant_region) = 1
 ),
 
 final as (
@@ -54,19 +61,22 @@ final as (
         customers.home_region,
         customers.sex,
         date_diff('year', customers.birth_date, $window_end::date)
-            - case when strftime(customers.birth_date, '%m-%d') > strftime($window_end::date, '%m-%d') then 1 else 0 end
-            as age_years,
-        coalesce(activity.txn_count, 0) as txn_count,
-        coalesce(activity.txn_count, 0) / ((($window_end::date - $window_start::date) + 1) / 7.0) as txn_per_week,
-        coalesce(activity.days_with_txn, 0) as days_with_txn,
-        activity.mean_txn_amount,
-        activity.largest_debit,
-        coalesce(activity.count_large_debits, 0) as count_large_debits,
-        coalesce(activity.total_debit_amount, 0) as total_debit_amount,
-        activity.median_balance,
+            - case
+                when strftime(customers.birth_date, '%m-%d') > strftime($window_end::date, '%m-%d') then 1 else 0
+            end as age_years,
+        coalesce(spending.debit_count, 0) as debit_count,
+        coalesce(spending.debit_count, 0) / ((($window_end::date - $window_start::date) + 1) / 7.0)
+            as debits_per_week,
+        coalesce(spending.days_with_debit, 0) as days_with_debit,
+        spending.mean_debit_amount,
+        spending.largest_debit,
+        coalesce(spending.count_large_debits, 0) as count_large_debits,
+        coalesce(spending.total_debit_amount, 0) as total_debit_amount,
+        balances.median_balance,
         coalesce(top_region.top_merchant_region, 'none') as top_merchant_region
     from customers
-    left join activity on activity.customer_id = customers.customer_id
+    left join spending on spending.customer_id = customers.customer_id
+    left join balances on balances.customer_id = customers.customer_id
     left join top_region on top_region.customer_id = customers.customer_id
 )
 
