@@ -158,8 +158,6 @@ def run(
 @app.command()
 def status(limit: Annotated[int, typer.Option(help="How many recent runs to show.")] = 10) -> None:
     """Recent runs, their stages and gate outcomes (read from the working warehouse)."""
-    import duckdb
-
     from tasks.warehouse import connect
 
     s = _settings()
@@ -171,13 +169,8 @@ def status(limit: Annotated[int, typer.Option(help="How many recent runs to show
         )
     try:
         con = connect(s.warehouse_path, read_only=True)
-    except duckdb.IOException:
-        _fail(
-            LedgerbandError(
-                "the warehouse is busy (a run is writing it); published tables stay readable at "
-                f"{s.published_path}"
-            )
-        )
+    except LedgerbandError as exc:
+        _fail(exc)
     rows = con.execute(
         "select run_id, period, started_at, status, error, stages, gate_figures from ops.runs "
         "order by started_at desc limit ?",

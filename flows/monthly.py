@@ -28,7 +28,12 @@ def find_extracts_task(landing_dir: Path, periods: list[str]) -> list[Path]:
     return [m.path for p in periods for m in find_manifests(landing_dir, p)]
 
 
-@flow(name="ledgerband-monthly-run", on_failure=[alert_owners_hook], log_prints=True)
+@flow(
+    name="ledgerband-monthly-run",
+    flow_run_name="monthly-{period}",
+    on_failure=[alert_owners_hook],
+    log_prints=True,
+)
 def monthly_run(period: str, landing_dir: Path | None = None) -> dict:
     """Run one month end to end; raises GateStopped (flow FAILED, owners alerted) when a gate stops it.
 

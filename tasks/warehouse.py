@@ -60,7 +60,15 @@ def connect(path: Path | str, read_only: bool = False) -> duckdb.DuckDBPyConnect
     if not read_only:
         path.parent.mkdir(parents=True, exist_ok=True)
     config = {"autoinstall_known_extensions": False, "autoload_known_extensions": True}
-    return duckdb.connect(str(path), read_only=read_only, config=config)
+    try:
+        return duckdb.connect(str(path), read_only=read_only, config=config)
+    except duckdb.IOException as exc:
+        if "lock" in str(exc).lower():
+            raise LedgerbandError(
+                f"warehouse {path} is in use by another process (is another run in progress?); DuckDB allows one "
+                f"writer and no other reader. Readers use the published copy instead. ({exc})"
+            ) from exc
+        raise
 
 
 @contextmanager

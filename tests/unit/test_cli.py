@@ -1,9 +1,15 @@
 """The CLI turns user mistakes into one clear line and a non-zero exit code, never a traceback."""
 
+import os
+import subprocess
+import sys
+
+import duckdb
 import pytest
 from typer.testing import CliRunner
 
 from flows.cli import app
+from tasks.warehouse import apply_schema
 
 runner = CliRunner()
 
@@ -38,3 +44,19 @@ def test_misspelt_setting_is_a_configuration_error(monkeypatch):
     monkeypatch.setenv("LEDGERBAND_ACURACY__MIN_BAND_ACCURACY", "0.5")
     code, output = _run("status")
     assert code == 2 and "configuration error" in output and "LEDGERBAND_ACURACY__MIN_BAND_ACCURACY" in output
+
+
+def test_status_while_a_run_holds_the_warehouse_says_so(tmp_path):
+    # DuckDB lets no other process open a file that one process writes: hold it here, ask from a child.
+    (tmp_path / "state").mkdir()
+    writer = duckdb.connect(str(tmp_path / "state" / "warehouse.duckdb"))
+    apply_schema(writer)
+    try:
+        env = {**os.environ, "LEDGERBAND_HOME": str(tmp_path / "state")}
+        proc = subprocess.run(
+            [sys.executable, "-m", "flows.cli", "status"], capture_output=True, text=True, env=env
+        )
+    finally:
+        writer.close()
+    assert proc.returncode == 2
+    assert "is in use by another process" in proc.stderr and "Traceback" not in proc.stderr
