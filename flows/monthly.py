@@ -5,15 +5,14 @@ from __future__ import annotations
 import uuid
 from pathlib import Path
 
-from prefect import flow, task
-from prefect.cache_policies import NO_CACHE
+from prefect import flow
 from prefect.runtime import flow_run
 
 from tasks.alerts import alert_owners_hook
 from tasks.errors import GateStopped
 from tasks.features import build_features_task
 from tasks.gates import accuracy_gate_task, quality_gate_task
-from tasks.ingest import find_manifests, ingest_customers_task, ingest_extract_task
+from tasks.ingest import find_extracts_task, ingest_customers_task, ingest_extract_task
 from tasks.publish import publish_task
 from tasks.report import report_task
 from tasks.runlog import RunLog
@@ -21,11 +20,6 @@ from tasks.settings import get_settings
 from tasks.train import train_task
 from tasks.validate import validate_load_task
 from tasks.warehouse import Period
-
-
-@task(name="find-extracts", cache_policy=NO_CACHE)
-def find_extracts_task(landing_dir: Path, periods: list[str]) -> list[Path]:
-    return [m.path for p in periods for m in find_manifests(landing_dir, p)]
 
 
 @flow(
@@ -50,7 +44,7 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> dict:
     try:
         with log.stage("ingest") as stage:
             window = [str(p) for p in Period.parse(period).window(settings.features.window_months)]
-            manifests = find_extracts_task(landing, window)
+            manifests = find_extracts_task(warehouse, landing, window)
             loads = [ingest_extract_task(warehouse, m, run_id) for m in manifests]
             loads.append(ingest_customers_task(warehouse, landing / "customers.csv", run_id))
             stage["detail"] = {load["source_file"]: load["status"] for load in loads}

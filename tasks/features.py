@@ -9,6 +9,7 @@ from prefect import task
 from prefect.cache_policies import NO_CACHE
 
 from tasks.errors import LedgerbandError
+from tasks.ingest import accepted_periods
 from tasks.settings import Settings
 from tasks.warehouse import Period, open_warehouse, run_sql_file
 
@@ -34,12 +35,7 @@ def window_params(period: str, settings: Settings) -> dict:
 def check_window_loaded(con: duckdb.DuckDBPyConnection, period: str, settings: Settings) -> None:
     """Refuse to build features over a window with a month that has no accepted extract."""
     window = [str(p) for p in Period.parse(period).window(settings.features.window_months)]
-    loaded = {
-        r[0]
-        for r in con.execute(
-            "select distinct period from ops.loads where dataset = 'ledger' and status = 'accepted'"
-        ).fetchall()
-    }
+    loaded = accepted_periods(con)
     missing = [p for p in window if p not in loaded]
     if missing:
         raise LedgerbandError(

@@ -130,6 +130,27 @@ def find_manifests(landing_dir: Path, period: str) -> list[Manifest]:
     return manifests
 
 
+def manifests_to_load(landing_dir: Path, periods: list[str], accepted_periods: set[str]) -> list[Path]:
+    """Manifests of every period in `periods` that has a landing folder.
+
+    A period whose folder is gone is fine once it has an accepted extract (landing folders are often
+    cleaned after loading); otherwise its absence is an error naming the folder looked for.
+    """
+    paths: list[Path] = []
+    for period in periods:
+        if not (Path(landing_dir) / period).is_dir() and period in accepted_periods:
+            continue
+        paths.extend(m.path for m in find_manifests(landing_dir, period))
+    return paths
+
+
+def accepted_periods(con: duckdb.DuckDBPyConnection) -> set[str]:
+    rows = con.execute(
+        "select distinct period from ops.loads where dataset = 'ledger' and status = 'accepted'"
+    )
+    return {r[0] for r in rows.fetchall()}
+
+
 @dataclass(frozen=True)
 class Records:
     """A file's data records as text columns, with line numbers, plus records that could not be split."""
@@ -291,8 +312,8 @@ def load_extract(con: duckdb.DuckDBPyConnection, manifest: Manifest, run_id: str
         )
     clash = con.execute(
         "select load_id, sha256 from ops.loads where dataset = 'ledger' and status = 'accepted' "
-        "and period = ? and source_file like ?",
-        [manifest.period, f"%/{path.name}"],
+        "and period = ? and parse_filename(source_file) = ?",
+        [manifest.period, path.name],
     ).fetchall()
     if clash:
         raise ExtractError(
@@ -429,6 +450,13 @@ def load_customers(con: duckdb.DuckDBPyConnection, path: Path, run_id: str) -> L
             [load_id, str(path), sha, records.table.num_rows, records.table.num_rows, run_id, now, now],
         )
     return LoadSummary(load_id, str(path), None, "loaded", records.table.num_rows, records.table.num_rows)
+
+
+@task(name="find-extracts", cache_policy=NO_CACHE)
+def find_extracts_task(warehouse: Path, landing_dir: Path, periods: list[str]) -> list[Path]:
+    with open_warehouse(warehouse) as con:
+        accepted = accepted_periods(con)
+    return manifests_to_load(Path(landing_dir), periods, accepted)
 
 
 @task(name="ingest-extract", cache_policy=NO_CACHE)

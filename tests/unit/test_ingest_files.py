@@ -1,4 +1,5 @@
 import json
+import shutil
 from pathlib import Path
 
 import pyarrow as pa
@@ -88,3 +89,19 @@ def test_parquet_records_are_numbered_and_typed_columns_become_text(tmp_path):
     rec = read_records(path, LEDGER_COLUMNS)
     assert rec.table.column("source_line").to_pylist() == [1, 2]
     assert rec.table.column("amount").to_pylist() == ["12.50", "3.00"]
+
+
+def test_a_cleaned_landing_folder_is_fine_once_its_month_is_accepted(tmp_path):
+    from tasks.ingest import manifests_to_load
+
+    landing = tmp_path / "landing"
+    shutil.copytree(GOOD / "2026-10", landing / "2026-10")
+    got = manifests_to_load(landing, ["2026-09", "2026-10"], accepted_periods={"2026-09"})
+    assert [p.name for p in got] == ["ledger-2026-10.manifest.json"]
+
+
+def test_a_month_neither_landed_nor_accepted_is_an_error_naming_the_folder(tmp_path):
+    from tasks.ingest import manifests_to_load
+
+    with pytest.raises(ExtractError, match=str(tmp_path / "2026-09")):
+        manifests_to_load(tmp_path, ["2026-09"], accepted_periods=set())
