@@ -18,7 +18,7 @@ from tasks.report import report_task
 from tasks.runlog import RunLog
 from tasks.settings import get_settings
 from tasks.train import train_task
-from tasks.validate import validate_load_task
+from tasks.validate import validate_features_task, validate_load_task
 from tasks.warehouse import Period
 
 
@@ -58,6 +58,9 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> dict:
                 raise GateStopped("quality", quality["reason"])
         with log.stage("features") as stage:
             stage["detail"] = build_features_task(warehouse, period, settings)
+            problems = validate_features_task(warehouse)
+            if problems:
+                raise GateStopped("quality", "; ".join(problems))
         with log.stage("train") as stage:
             train = train_task(warehouse, run_id, period, settings)
             stage["detail"] = {"champion": train["champion"], "n_labelled": train["n_labelled"]}

@@ -35,6 +35,7 @@ EXPECTATIONS_DIR = PROJECT_ROOT / "expectations"
 WHOLE_COLUMN_TYPES = frozenset({"expect_column_values_to_be_unique"})
 ROW_TYPE_PREFIX = "expect_column_values_to_"
 RESULT_FORMAT = {"result_format": "COMPLETE", "unexpected_index_column_names": ["source_line"]}
+_EXAMPLE_IDS = 3
 _EXAMPLES_KEPT = 5
 
 
@@ -101,7 +102,11 @@ def _gx():
 
 
 def _run(
-    suite_name: str, expectations: list[dict], frame: pd.DataFrame, params: dict | None = None
+    suite_name: str,
+    expectations: list[dict],
+    frame: pd.DataFrame,
+    params: dict | None = None,
+    index_column: str = "source_line",
 ) -> list[Any]:
     """Validate `frame` against `expectations`; returns GX results. Raises if any rule could not be evaluated."""
     if not expectations:
@@ -114,7 +119,8 @@ def _run(
             "check the expectation types"
         )
     batch = batch_definition.get_batch(batch_parameters={"dataframe": frame})
-    result = batch.validate(suite, expectation_parameters=params or {}, result_format=RESULT_FORMAT)
+    result_format = {**RESULT_FORMAT, "unexpected_index_column_names": [index_column]}
+    result = batch.validate(suite, expectation_parameters=params or {}, result_format=result_format)
     for r in result.results:
         info = r.exception_info or {}
         raised = (
@@ -283,8 +289,35 @@ def validate_load(
     )
 
 
+def validate_features(con: duckdb.DuckDBPyConnection, suite_name: str = "customer_features") -> list[str]:
+    """Run the feature suite on features.customer (one narrow row per customer: validated whole).
+
+    Returns one problem line per broken rule, naming the rule, how many customers and a few of them.
+    """
+    parts = read_suite(suite_name)
+    frame = con.sql("select * from features.customer").df()
+    problems = []
+    for r in _run(
+        suite_name, parts.table + parts.whole_column + parts.row, frame, index_column="customer_id"
+    ):
+        if not r.success:
+            ids = [str(item.get("customer_id")) for item in (r.result.get("unexpected_index_list") or [])]
+            problems.append(
+                f"features.customer breaks rule {r.expectation_config.meta['rule']} for {len(ids)} customer(s), "
+                f"e.g. {', '.join(ids[:_EXAMPLE_IDS]) or 'the table as a whole'}"
+            )
+    return problems
+
+
 @task(name="validate-extract", cache_policy=NO_CACHE)
 def validate_load_task(warehouse: Path, load_id: str, settings: Settings) -> dict:
     """Run the ledger suite on one load (never retried: validation is deterministic)."""
     with open_warehouse(warehouse) as con:
         return validate_load(con, load_id, settings).to_dict()
+
+
+@task(name="validate-features", cache_policy=NO_CACHE)
+def validate_features_task(warehouse: Path) -> list[str]:
+    """Feature suite; any broken rule is returned (the flow stops the run on it)."""
+    with open_warehouse(warehouse) as con:
+        return validate_features(con)

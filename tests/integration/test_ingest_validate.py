@@ -9,6 +9,7 @@ import pytest
 from tasks.errors import ExtractError, GateStopped
 from tasks.gates import quality_gate, settle_loads
 from tasks.ingest import find_manifests, load_customers, load_extract
+from tasks.settings import Settings
 from tasks.validate import validate_load
 from tasks.warehouse import run_sql_file
 
@@ -151,3 +152,29 @@ def test_customer_file_is_loaded_once(con, tmp_path):
     second = load_customers(con, landing / "customers.csv", "run-2")
     assert (first.status, second.status) == ("loaded", "skipped")
     assert con.execute("select count(*) from raw.customers").fetchall()[0][0] == 2
+
+
+def test_feature_suite_passes_real_features_and_names_broken_rules(con, ledger_con_with_features):
+    from tasks.validate import validate_features
+
+    assert validate_features(ledger_con_with_features) == []
+    ledger_con_with_features.execute("update features.customer set debit_count = -1 where customer_id = 'C2'")
+    ledger_con_with_features.execute(
+        "insert into features.customer select * from features.customer where customer_id = 'C1'"
+    )
+    problems = validate_features(ledger_con_with_features)
+    assert "features.customer breaks rule one_row_per_customer for 2 customer(s), e.g. C1, C1" in problems
+    assert "features.customer breaks rule debit_count_not_negative for 1 customer(s), e.g. C2" in problems
+
+
+@pytest.fixture
+def ledger_con_with_features(con, settings, tmp_path):
+    from tasks.features import build_features
+    from tasks.ingest import load_customers
+
+    landing = _copy(tmp_path, "ledger_good")
+    _, v = _ingest(con, landing, settings)
+    settle_loads(con, [v.to_dict()], quality_gate([v.to_dict()], settings))
+    load_customers(con, landing / "customers.csv", "run-1")
+    build_features(con, "2026-10", Settings(home=tmp_path, features={"window_months": 1}))
+    return con
