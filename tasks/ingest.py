@@ -26,6 +26,7 @@ from prefect.cache_policies import NO_CACHE
 
 from tasks.contract import CUSTOMER_COLUMNS, LEDGER_COLUMNS, sha256_file
 from tasks.errors import ExtractError, GateStopped
+from tasks.retry import IO_RETRIES
 from tasks.warehouse import Period, open_warehouse, scalar, transaction
 
 MANIFEST_FIELDS = ("period", "institution", "file", "sha256", "row_count", "credit_total", "debit_total")
@@ -452,14 +453,14 @@ def load_customers(con: duckdb.DuckDBPyConnection, path: Path, run_id: str) -> L
     return LoadSummary(load_id, str(path), None, "loaded", records.table.num_rows, records.table.num_rows)
 
 
-@task(name="find-extracts", cache_policy=NO_CACHE)
+@task(name="find-extracts", cache_policy=NO_CACHE, **IO_RETRIES)
 def find_extracts_task(warehouse: Path, landing_dir: Path, periods: list[str]) -> list[Path]:
     with open_warehouse(warehouse) as con:
         accepted = accepted_periods(con)
     return manifests_to_load(Path(landing_dir), periods, accepted)
 
 
-@task(name="ingest-extract", cache_policy=NO_CACHE)
+@task(name="ingest-extract", cache_policy=NO_CACHE, **IO_RETRIES)
 def ingest_extract_task(warehouse: Path, manifest_path: Path, run_id: str) -> dict:
     """Load one extract named by its manifest (one file = one retryable unit)."""
     manifest = read_manifest(Path(manifest_path))
@@ -467,7 +468,7 @@ def ingest_extract_task(warehouse: Path, manifest_path: Path, run_id: str) -> di
         return load_extract(con, manifest, run_id).to_dict()
 
 
-@task(name="ingest-customers", cache_policy=NO_CACHE)
+@task(name="ingest-customers", cache_policy=NO_CACHE, **IO_RETRIES)
 def ingest_customers_task(warehouse: Path, customers_path: Path, run_id: str) -> dict:
     with open_warehouse(warehouse) as con:
         return load_customers(con, Path(customers_path), run_id).to_dict()

@@ -20,6 +20,7 @@ from prefect.cache_policies import NO_CACHE
 
 from tasks.bands import write_band_table
 from tasks.errors import LedgerbandError
+from tasks.retry import IO_RETRIES
 from tasks.settings import Settings
 from tasks.warehouse import open_warehouse, sql_file, transaction
 
@@ -101,7 +102,7 @@ def _sql_path(path: Path) -> str:
     return str(path).replace("'", "''")
 
 
-@task(name="publish-snapshot", cache_policy=NO_CACHE)
+@task(name="publish-snapshot", cache_policy=NO_CACHE, **IO_RETRIES)
 def publish_task(warehouse: Path, run_id: str, period: str, model_version: str, settings: Settings) -> dict:
     with open_warehouse(warehouse) as con:
         result = publish_snapshot(con, run_id, period, model_version, settings)

@@ -11,6 +11,7 @@ from jinja2 import Environment, FileSystemLoader, select_autoescape
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
+from tasks.retry import IO_RETRIES
 from tasks.settings import Settings
 from tasks.warehouse import open_warehouse
 
@@ -130,7 +131,7 @@ def write_report(con: duckdb.DuckDBPyConnection, run_id: str, period: str, setti
     return out
 
 
-@task(name="write-report", cache_policy=NO_CACHE)
+@task(name="write-report", cache_policy=NO_CACHE, **IO_RETRIES)
 def report_task(warehouse: Path, run_id: str, period: str, settings: Settings) -> str:
     with open_warehouse(warehouse) as con:
         return str(write_report(con, run_id, period, settings))
