@@ -30,6 +30,8 @@ create table if not exists ops.loads (
     loaded_at timestamp not null,
     decided_at timestamp
 );
+-- When the file was last handed to a run (a file sent again is skipped, but becomes the latest again).
+alter table ops.loads add column if not exists last_seen_at timestamp;
 
 -- Ledger records exactly as received (text), with lineage. Grain: one row per data record of a file.
 create table if not exists raw.ledger_lines (
@@ -75,16 +77,22 @@ create table if not exists quarantine.ledger_lines (
     quarantined_at timestamp not null
 );
 
--- Pay frequencies and how many pay periods a year each means. Gap bounds are inclusive, in days, and
--- allow for pay dates moved to the previous business day (weekends, holidays). A median of whole-day
--- gaps is a whole or half number, so the ranges leave no such value unclassified between 26 and 35.
--- Periods per year: weekly 365.25/7, fortnightly 365.25/14, four-weekly 365.25/28, monthly 12.
+-- Pay frequencies and how many pay periods a year each means, classified by the median gap in days
+-- between regular pay dates (bounds inclusive). Pay tied to a weekday (weekly, fortnightly, four-weekly)
+-- keeps exact 7/14/28-day gaps, a holiday moving one date by a day at most shifts the median by half a
+-- day. Pay tied to a day of the month (semi-monthly, monthly) follows month lengths and weekend moves, so
+-- its gaps wander: a last-business-day salary across February can show gaps of 29 and 28 (median 28.5),
+-- which is why monthly starts at 28.5 and four-weekly ends at 28. A median of whole-day gaps is a whole or
+-- half number, so no such value falls between adjacent ranges; 9.5-11.5 and 18.5-25.5 are irregular.
+-- Periods per year: weekly 365.25/7, fortnightly 365.25/14, semi-monthly 24, four-weekly 365.25/28,
+-- monthly 12.
 create or replace table ref.pay_frequencies as
 select * from (values
     ('weekly', 5.0, 9.0, 365.25 / 7),
-    ('fortnightly', 12.0, 16.0, 365.25 / 14),
-    ('four_weekly', 26.0, 28.5, 365.25 / 28),
-    ('monthly', 29.0, 35.0, 12.0)
+    ('fortnightly', 12.0, 14.5, 365.25 / 14),
+    ('semi_monthly', 15.0, 18.0, 24.0),
+    ('four_weekly', 26.0, 28.0, 365.25 / 28),
+    ('monthly', 28.5, 35.0, 12.0)
 ) as t (frequency, min_gap_days, max_gap_days, periods_per_year);
 
 create table if not exists ml.model_runs (

@@ -8,9 +8,12 @@ from tasks.warehouse import run_sql_file
 from tests.sql.sqlkit import WINDOW, every
 
 
-def _build(con):
-    run_sql_file(con, "features", "salary_streams", WINDOW)
-    run_sql_file(con, "features", "customer_salary", WINDOW)
+def _build(con, window=WINDOW):
+    run_sql_file(con, "features", "salary_streams", window)
+    run_sql_file(con, "features", "customer_salary", window)
+
+
+WINTER = {"window_start": date(2026, 12, 1), "window_end": date(2027, 2, 28)}
 
 
 def _stream(con, customer_id):
@@ -63,6 +66,52 @@ def test_a_one_off_bonus_does_not_set_the_pay_amount(con, ledger):
     # Median of the latest three payments (2000, 5000, 2000) is 2000.
     assert amount == 2000.0 and annual == pytest.approx(24_000.0)
     assert freq == "monthly"
+
+
+def test_a_bonus_on_another_day_neither_breaks_the_rhythm_nor_the_amount(con, ledger):
+    ledger.pay("C1", [date(2026, 8, 28), date(2026, 9, 28), date(2026, 10, 28)], 2000.0)
+    ledger.pay("C1", [date(2026, 10, 15)], 3500.0, txn_id="BONUS")  # gaps would read 31, 17, 13 with it
+    ledger.load()
+    _build(con)
+    [(freq, amount, annual, _)] = _stream(con, "C1")
+    assert (freq, amount, annual) == ("monthly", 2000.0, pytest.approx(24_000.0))
+
+
+def test_last_business_day_pay_across_february_is_monthly(con, ledger):
+    # 2026-12-31 Thu, 2027-01-29 Fri (30/31 Jan are a weekend), 2027-02-26 Fri (27/28 Feb are a weekend):
+    # gaps 29 and 28, median 28.5. Source: Gregorian calendar for 2026-2027.
+    ledger.pay("C1", [date(2026, 12, 31), date(2027, 1, 29), date(2027, 2, 26)], 3000.0)
+    ledger.load()
+    _build(con, WINTER)
+    [(freq, _, annual, _)] = _stream(con, "C1")
+    assert (freq, annual) == ("monthly", pytest.approx(36_000.0))
+
+
+def test_four_weekly_pay_with_one_holiday_moved_date_stays_four_weekly(con, ledger):
+    dates = every(date(2026, 8, 7), 28, 4)  # Fridays: 7 Aug, 4 Sep, 2 Oct, 30 Oct
+    dates[1] = date(2026, 9, 3)  # a holiday on Friday 4 Sep: paid Thursday, gaps 27, 29, 28
+    ledger.pay("C1", dates, 1500.0)
+    ledger.load()
+    _build(con)
+    [(freq, _, annual, _)] = _stream(con, "C1")
+    assert freq == "four_weekly" and annual == pytest.approx(1500 * 365.25 / 28, abs=0.01)
+
+
+def test_semi_monthly_pay_is_annualised_by_24(con, ledger):
+    # The 15th and the last day of each month, moved to the previous business day when on a weekend.
+    dates = [
+        date(2026, 8, 14),
+        date(2026, 8, 31),
+        date(2026, 9, 15),
+        date(2026, 9, 30),
+        date(2026, 10, 15),
+        date(2026, 10, 30),
+    ]
+    ledger.pay("C1", dates, 1250.0)
+    ledger.load()
+    _build(con)
+    [(freq, _, annual, _)] = _stream(con, "C1")
+    assert (freq, annual) == ("semi_monthly", pytest.approx(30_000.0))
 
 
 def test_a_pay_rise_takes_over_after_two_payments(con, ledger):

@@ -3,9 +3,11 @@
 -- Key: customer_id, payer_id.
 -- Reads: staging.transactions, ref.pay_frequencies.
 -- Parameters: $window_start, $window_end (dates, inclusive).
--- Pay frequency comes from the median gap in days between consecutive pay dates (robust to one pay
--- date moved by a weekend or holiday). The pay amount is the median of the latest three payments, so a
--- one-off bonus does not set it and a pay rise takes over after two payments. A stream is current when
+-- Regular payments are those between 60% and 160% of the stream's median amount (our choice: a pay rise
+-- stays regular, a bonus or a small top-up does not); only they set the frequency and the pay amount.
+-- Pay frequency comes from the median gap in days between consecutive regular pay dates (robust to one
+-- date moved by a weekend or holiday). The pay amount is the median of the latest three regular
+-- payments, so a pay rise takes over after two payments. A stream is current when
 -- its last payment is no older than its own longest expected gap (plus a week) at the window's end.
 
 with
@@ -26,6 +28,20 @@ payroll_credits as (
     where is_payroll_coded
 ),
 
+stream_typical as (
+    select customer_id, payer_id, median(amount) as typical_amount, count(*)::bigint as all_payment_count,
+        sum(amount) as total_paid
+    from payroll_credits
+    group by all
+),
+
+regular_credits as (
+    select payroll_credits.*
+    from payroll_credits
+    inner join stream_typical using (customer_id, payer_id)
+    where payroll_credits.amount between 0.6 * stream_typical.typical_amount and 1.6 * stream_typical.typical_amount
+),
+
 sequenced as (
     select
         *,
@@ -35,7 +51,7 @@ sequenced as (
         row_number() over (
             partition by customer_id, payer_id order by booking_date desc, amount desc
         ) as recency_rank
-    from payroll_credits
+    from regular_credits
 ),
 
 streams as (
@@ -46,8 +62,7 @@ streams as (
         min(booking_date) as first_pay_date,
         max(booking_date) as last_pay_date,
         median(gap_days) as median_gap_days,
-        median(amount) filter (where recency_rank <= 3) as pay_amount,
-        sum(amount) as total_paid
+        median(amount) filter (where recency_rank <= 3) as pay_amount
     from sequenced
     group by all
 ),
@@ -55,10 +70,13 @@ streams as (
 classified as (
     select
         streams.*,
+        stream_typical.all_payment_count - streams.payment_count as extra_payment_count,
+        stream_typical.total_paid,
         coalesce(freq.frequency, 'irregular') as pay_frequency,
         freq.periods_per_year,
         freq.max_gap_days
     from streams
+    inner join stream_typical using (customer_id, payer_id)
     left join ref.pay_frequencies as freq
         on streams.median_gap_days between freq.min_gap_days and freq.max_gap_days
 ),
@@ -68,6 +86,7 @@ final as (
         customer_id,
         payer_id,
         payment_count,
+        extra_payment_count,
         first_pay_date,
         last_pay_date,
         median_gap_days,
