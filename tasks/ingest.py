@@ -8,6 +8,7 @@ amount totals are reconciled before anything downstream sees the rows.
 
 from __future__ import annotations
 
+import csv
 import json
 import re
 import uuid
@@ -25,7 +26,7 @@ from prefect import task
 from prefect.cache_policies import NO_CACHE
 
 from tasks.contract import CUSTOMER_COLUMNS, LEDGER_COLUMNS, sha256_file
-from tasks.errors import ExtractError, GateStopped
+from tasks.errors import ExtractError, GateStopped, LedgerbandError
 from tasks.retry import IO_RETRIES
 from tasks.warehouse import Period, open_warehouse, scalar, transaction
 
@@ -94,7 +95,10 @@ def read_manifest(path: Path) -> Manifest:
             raise ExtractError(f"manifest {path}: {key} {text!r} is not a decimal") from exc
     if not re.fullmatch(r"[0-9a-f]{64}", str(data["sha256"]).lower()):
         raise ExtractError(f"manifest {path}: sha256 must be 64 hex digits")
-    Period.parse(str(data["period"]))
+    try:
+        Period.parse(str(data["period"]))
+    except LedgerbandError as exc:
+        raise ExtractError(f"manifest {path}: field period: {exc}") from exc
     if Path(data["file"]).name != data["file"]:
         raise ExtractError(
             f"manifest {path}: file must be a bare file name beside the manifest, got {data['file']!r}"
@@ -186,6 +190,8 @@ def read_records(path: Path, expected_columns: tuple[str, ...]) -> Records:
             parse_options=pacsv.ParseOptions(invalid_row_handler=on_invalid),
             convert_options=pacsv.ConvertOptions(
                 column_types={c: pa.string() for c in header},
+                # Only an empty field is null (the contract); Arrow would also read "NA", "null", "nan" … as null.
+                null_values=[""],
                 strings_can_be_null=True,
                 quoted_strings_can_be_null=True,
             ),
@@ -199,18 +205,19 @@ def read_records(path: Path, expected_columns: tuple[str, ...]) -> Records:
     if len(lines) != table.num_rows:  # a quoted field spanning lines breaks the line arithmetic
         lines = np.arange(2, table.num_rows + 2, dtype=np.int64)
     table = table.add_column(0, "source_line", pa.array(lines))
+    header = [c for c in table.column_names if c != "source_line"]  # as Arrow read them, which is what loads
     return Records(table=table, header=header, malformed=malformed)
 
 
 def _csv_header(path: Path) -> list[str]:
+    """Column names exactly as written (a byte-order mark is allowed; spaces are kept, so they show)."""
     try:
-        with path.open("r", encoding="utf-8", newline="") as f:
-            first = f.readline().rstrip("\r\n")
+        with path.open("r", encoding="utf-8-sig", newline="") as f:
+            header = next(csv.reader([f.readline()]), [])
     except UnicodeDecodeError as exc:
         raise ExtractError(f"{path}: line 1 (header) is not UTF-8 ({exc})") from exc
-    if not first:
+    if not header or header == [""]:
         raise ExtractError(f"{path}: empty file, expected a header row on line 1")
-    header = [h.strip().strip('"') for h in first.split(",")]
     dupes = sorted({h for h in header if header.count(h) > 1})
     if dupes:
         raise ExtractError(f"{path}: line 1 (header) repeats column(s) {', '.join(dupes)}")
@@ -256,15 +263,20 @@ def _insert_records(
     path: Path,
 ) -> None:
     con.register("incoming_records", records.table)
-    try:
-        cols = ", ".join(columns)
-        con.execute(
-            f"insert into {target} (load_id, source_file, source_line, {cols}) "
-            f"select ?, ?, source_line, {cols} from incoming_records",
-            [load_id, str(path)],
-        )
-    finally:
-        con.unregister("incoming_records")
+    cols = ", ".join(columns)
+    con.execute(
+        f"insert into {target} (load_id, source_file, source_line, {cols}) "
+        f"select ?, ?, source_line, {cols} from incoming_records",
+        [load_id, str(path)],
+    )
+    con.unregister(
+        "incoming_records"
+    )  # (after a failed insert the name stays; the next register replaces it)
+
+
+def _seen_again(con: duckdb.DuckDBPyConnection, load_id: str) -> None:
+    """A file handed in again is the latest one sent, even though its rows are not loaded twice."""
+    con.execute("update ops.loads set last_seen_at = ? where load_id = ?", [datetime.now(), load_id])
 
 
 def _new_load_id() -> str:
@@ -304,6 +316,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, manifest: Manifest, run_id: str
         "select load_id from ops.loads where sha256 = ? and dataset = 'ledger' and status = 'accepted'", [sha]
     ).fetchall()
     if accepted:
+        _seen_again(con, accepted[0][0])
         return LoadSummary(
             accepted[0][0],
             str(path),
@@ -355,8 +368,9 @@ def load_extract(con: duckdb.DuckDBPyConnection, manifest: Manifest, run_id: str
         con.execute(
             """
             insert into ops.loads (load_id, dataset, period, source_file, sha256, manifest_row_count, rows_in_file,
-                rows_loaded, rows_quarantined, credit_total, debit_total, status, reason, run_id, loaded_at, decided_at)
-            values (?, 'ledger', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)
+                rows_loaded, rows_quarantined, credit_total, debit_total, status, reason, run_id, loaded_at, decided_at,
+                last_seen_at)
+            values (?, 'ledger', ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)
             """,
             [
                 load_id,
@@ -374,6 +388,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, manifest: Manifest, run_id: str
                 run_id,
                 now,
                 now if problems else None,
+                now,
             ],
         )
     if problems:
@@ -429,7 +444,14 @@ def load_customers(con: duckdb.DuckDBPyConnection, path: Path, run_id: str) -> L
         [sha],
     )
     if accepted:
-        return LoadSummary(accepted, str(path), None, "skipped", notes=["same customer file already loaded"])
+        _seen_again(con, accepted)
+        return LoadSummary(
+            accepted,
+            str(path),
+            None,
+            "skipped",
+            notes=["same customer file already loaded; it is current again"],
+        )
     records = read_records(path, CUSTOMER_COLUMNS)
     _check_header(path, records.header, CUSTOMER_COLUMNS, suite=None)
     if records.malformed:
@@ -445,10 +467,10 @@ def load_customers(con: duckdb.DuckDBPyConnection, path: Path, run_id: str) -> L
         con.execute(
             """
             insert into ops.loads (load_id, dataset, source_file, sha256, rows_in_file, rows_loaded,
-                rows_quarantined, status, run_id, loaded_at, decided_at)
-            values (?, 'customers', ?, ?, ?, ?, 0, 'accepted', ?, ?, ?)
+                rows_quarantined, status, run_id, loaded_at, decided_at, last_seen_at)
+            values (?, 'customers', ?, ?, ?, ?, 0, 'accepted', ?, ?, ?, ?)
             """,
-            [load_id, str(path), sha, records.table.num_rows, records.table.num_rows, run_id, now, now],
+            [load_id, str(path), sha, records.table.num_rows, records.table.num_rows, run_id, now, now, now],
         )
     return LoadSummary(load_id, str(path), None, "loaded", records.table.num_rows, records.table.num_rows)
 

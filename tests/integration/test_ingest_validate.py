@@ -178,3 +178,29 @@ def ledger_con_with_features(con, settings, tmp_path):
     load_customers(con, landing / "customers.csv", "run-1")
     build_features(con, "2026-10", Settings(home=tmp_path, features={"window_months": 1}))
     return con
+
+
+def test_a_customer_file_sent_again_becomes_current_again(con, tmp_path):
+    first, second = tmp_path / "a.csv", tmp_path / "b.csv"
+    first.write_text(
+        "customer_id,birth_date,sex,home_region,opened_date\nC1,1980-01-01,F,North Reach,2015-01-01\n"
+    )
+    second.write_text(
+        "customer_id,birth_date,sex,home_region,opened_date\nC1,1980-01-01,F,South Reach,2015-01-01\n"
+    )
+    for path in (first, second, first):  # A, then B, then A again
+        load_customers(con, path, "run")
+        run_sql_file(con, "staging", "customers")
+    assert con.execute("select home_region from staging.customers").fetchall() == [("North Reach",)]
+    assert con.execute("select count(*) from raw.customers").fetchall()[0][0] == 2  # A was not loaded twice
+
+
+def test_a_header_name_with_a_space_stops_at_the_contract_rule_naming_it(con, tmp_path):
+    landing = _copy(tmp_path, "ledger_good")
+    extract = landing / "2026-10" / "ledger-2026-10.csv"
+    text = extract.read_text()
+    extract.write_text(text.replace("txn_id,account_id", "txn_id, account_id", 1))
+    _rewrite_manifest(landing)
+    [manifest] = find_manifests(landing, "2026-10")
+    with pytest.raises(GateStopped, match="columns_match_contract: .*' account_id'"):
+        load_extract(con, manifest, "run-1")

@@ -105,3 +105,34 @@ def test_a_month_neither_landed_nor_accepted_is_an_error_naming_the_folder(tmp_p
 
     with pytest.raises(ExtractError, match=str(tmp_path / "2026-09")):
         manifests_to_load(tmp_path, ["2026-09"], accepted_periods=set())
+
+
+def test_a_byte_order_mark_is_not_part_of_the_first_column_name(tmp_path):
+    path = tmp_path / "bom.csv"
+    path.write_bytes(b"\xef\xbb\xbftxn_id,amount\nT1,1.00\n")
+    rec = read_records(path, ("txn_id", "amount"))
+    assert rec.header == ["txn_id", "amount"] and rec.table.column("txn_id").to_pylist() == ["T1"]
+
+
+def test_a_space_in_a_header_name_is_kept_so_the_contract_rule_can_name_it(tmp_path):
+    path = tmp_path / "space.csv"
+    path.write_text("txn_id, amount\nT1,1.00\n")
+    rec = read_records(path, ("txn_id", "amount"))
+    assert rec.header == ["txn_id", " amount"]
+    assert rec.table.column(" amount").to_pylist() == ["1.00"]  # still text, not a parsed number
+
+
+@pytest.mark.parametrize(
+    "text", ["NA", "null", "N/A", "nan", "#N/A", "NULL"]
+)  # words Arrow reads as null by default
+def test_only_an_empty_field_is_null(tmp_path, text):
+    path = tmp_path / "x.csv"
+    path.write_text(f"a,b\n{text},\n")
+    rec = read_records(path, ("a", "b"))
+    assert rec.table.column("a").to_pylist() == [text] and rec.table.column("b").to_pylist() == [None]
+
+
+def test_manifest_with_a_bad_period_names_the_manifest(tmp_path):
+    path = _manifest(tmp_path, period="2026-1")
+    with pytest.raises(ExtractError, match=f"manifest {path}: field period: period '2026-1' is not a month"):
+        read_manifest(path)

@@ -1,8 +1,8 @@
 -- staging.customers
 -- Grain: one row per customer_id. Key: customer_id.
 -- Reads: raw.customers, ops.loads.
--- The most recently accepted customer reference file is the current one; a customer listed twice in
--- it keeps the later line. sex and birth_date are protected attributes: kept for error-by-group
+-- The customer reference file most recently handed in is the current one (a file sent again is not
+-- loaded twice but becomes current again); a customer listed twice in it keeps the later line. sex and birth_date are protected attributes: kept for error-by-group
 -- analysis, never model features unless settings allow it after review.
 
 with
@@ -11,7 +11,7 @@ latest_load as (
     select load_id
     from ops.loads
     where dataset = 'customers' and status = 'accepted'
-    order by loaded_at desc, load_id desc
+    order by coalesce(last_seen_at, loaded_at) desc, loaded_at desc, load_id desc
     limit 1
 ),
 
