@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import logging
+from enum import StrEnum
 from pathlib import Path
 from typing import Annotated
 
@@ -13,6 +14,12 @@ from rich.table import Table
 
 import tasks  # noqa: F401  (process environment first)
 from tasks.errors import LedgerbandError
+
+
+class DemoFormat(StrEnum):
+    csv = "csv"
+    parquet = "parquet"
+
 
 app = typer.Typer(
     add_completion=False,
@@ -103,19 +110,34 @@ def _run_guarded(fn, *args, **kwargs) -> dict:
 @app.command()
 def demo(
     customers: Annotated[
-        int | None, typer.Option(help="Customers to generate (default from settings: 2000).")
+        int | None, typer.Option(min=50, help="Customers to generate (default from settings: 2000).")
     ] = None,
-    months: Annotated[int | None, typer.Option(help="Months of extracts ending at --end-period.")] = None,
+    months: Annotated[
+        int | None, typer.Option(min=1, max=24, help="Months of extracts ending at --end-period.")
+    ] = None,
     end_period: Annotated[str | None, typer.Option(help="Last month, YYYY-MM.")] = None,
-    file_format: Annotated[str | None, typer.Option("--format", help="csv or parquet.")] = None,
+    file_format: Annotated[
+        DemoFormat | None, typer.Option("--format", case_sensitive=False, help="File format of the extracts.")
+    ] = None,
 ) -> None:
     """Generate demo extracts for a fictional institution and run the monthly flow on them."""
     s = _settings()
     from flows.demo import demo_run
+    from tasks.warehouse import Period
+
+    if end_period is not None:
+        try:
+            Period.parse(end_period)
+        except LedgerbandError as exc:
+            _fail(exc)
 
     out.print(f"Generating demo extracts in {s.demo_landing_dir} and running the monthly flow …")
     result = _run_guarded(
-        demo_run, customers=customers, months=months, end_period=end_period, file_format=file_format
+        demo_run,
+        customers=customers,
+        months=months,
+        end_period=end_period,
+        file_format=file_format.value if file_format else None,
     )
     g = result["generated"]
     out.print(

@@ -11,7 +11,7 @@ from prefect.runtime import flow_run
 from tasks.alerts import alert_owners_hook
 from tasks.errors import GateStopped
 from tasks.features import build_features_task
-from tasks.gates import accuracy_gate_task, quality_gate_task
+from tasks.gates import accuracy_gate_task, quality_gate_task, record_stop_task
 from tasks.ingest import find_extracts_task, ingest_customers_task, ingest_extract_task
 from tasks.publish import publish_task
 from tasks.report import report_task
@@ -78,6 +78,7 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> dict:
         if not accuracy["passed"]:
             raise GateStopped("accuracy", accuracy["reason"] + f" — report: {result['report']}")
     except GateStopped as exc:
+        record_stop_task(warehouse, run_id, period, exc.gate, exc.reason)
         log.finish("withheld" if exc.gate == "accuracy" else "stopped", str(exc))
         raise
     except BaseException as exc:

@@ -23,6 +23,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from tasks.contract import CUSTOMER_COLUMNS, sha256_file
+from tasks.errors import LedgerbandError
 from tasks.warehouse import Period
 
 REGIONS = (
@@ -149,7 +150,9 @@ def _income_credits(
                 anchor = start - timedelta(days=int(rng.integers(0, 28)))
                 anchor = anchor - timedelta(days=(anchor.weekday() - 4) % 7)  # a Friday
                 pay_day = int(rng.choice([1, 15, 20, 25, 28, 31]))
-                coded = rng.random() < 0.7
+                # Most employers also send the salary sub-family code; all send purpose SALA (payroll
+                # without any code needs recurrence-based detection, which comes later).
+                salary_subfamily = rng.random() < 0.7
                 for d in _pay_dates(freq, anchor, start, end, pay_day):
                     rows.append(
                         (
@@ -158,7 +161,7 @@ def _income_credits(
                             d,
                             amount,
                             "CRDT",
-                            BTC_SALARY if coded else BTC_TRANSFER_IN,
+                            BTC_SALARY if salary_subfamily else BTC_TRANSFER_IN,
                             "SALA",
                             employer,
                             None,
@@ -350,7 +353,9 @@ def generate(
     Same arguments, same bytes: files are reproducible, so a rerun loads nothing twice.
     """
     if file_format not in ("csv", "parquet"):
-        raise ValueError(f"file_format must be csv or parquet, not {file_format!r}")
+        raise LedgerbandError(f"demo file format must be csv or parquet, not {file_format!r}")
+    if not 1 <= months <= 24 or customers < 50:
+        raise LedgerbandError(f"demo needs 1 to 24 months and at least 50 customers (got {months}, {customers})")
     rng = np.random.default_rng(seed)
     periods = Period.parse(end_period).window(months)
     start, end = periods[0].start, periods[-1].end

@@ -151,6 +151,23 @@ def settle_loads(con: duckdb.DuckDBPyConnection, validations: list[dict], decisi
         )
 
 
+def record_stop(con: duckdb.DuckDBPyConnection, run_id: str, period: str, gate: str, reason: str) -> None:
+    """Write down a stop raised outside a gate task (manifest, header or feature rules), unless that gate
+    already recorded its own stop with figures for this run."""
+    already = con.execute(
+        "select count(*) from published.decisions where run_id = ? and gate = ? and decision = 'stop'",
+        [run_id, gate],
+    ).fetchall()[0][0]
+    if not already:
+        record_decision(con, run_id, period, Decision(gate, False, reason))
+
+
+@task(name="record-gate-stop", cache_policy=NO_CACHE)
+def record_stop_task(warehouse: Path, run_id: str, period: str, gate: str, reason: str) -> None:
+    with open_warehouse(warehouse) as con:
+        record_stop(con, run_id, period, gate, reason)
+
+
 @task(name="quality-gate", cache_policy=NO_CACHE)
 def quality_gate_task(
     warehouse: Path, run_id: str, period: str, validations: list[dict], settings: Settings

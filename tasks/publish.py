@@ -22,7 +22,7 @@ from tasks.bands import write_band_table
 from tasks.errors import LedgerbandError
 from tasks.retry import IO_RETRIES
 from tasks.settings import Settings
-from tasks.warehouse import open_warehouse, sql_file, transaction
+from tasks.warehouse import bound, open_warehouse, read_query, transaction
 
 READER_TABLES = {
     "income_bands": "select * from published.income_bands",
@@ -34,9 +34,7 @@ READER_TABLES = {
 
 
 def _insert_from_file(con: duckdb.DuckDBPyConnection, table: str, name: str, params: dict) -> None:
-    query = sql_file("published", name).read_text().strip().rstrip(";")
-    used = {k: v for k, v in params.items() if f"${k}" in query}
-    con.execute(f"insert into {table}\n{query}", used)
+    con.execute(f"insert into {table}\n{read_query('published', name)}", bound("published", name, params))
 
 
 def publish_snapshot(

@@ -13,7 +13,7 @@ from prefect.cache_policies import NO_CACHE
 
 from tasks.retry import IO_RETRIES
 from tasks.settings import Settings
-from tasks.warehouse import open_warehouse
+from tasks.warehouse import Period, open_warehouse
 
 TEMPLATES = Path(__file__).resolve().parent / "templates"
 
@@ -49,8 +49,9 @@ def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: S
         con,
         "select source_file, period, rows_in_file, rows_loaded, rows_quarantined, status, reason, "
         "case when rows_in_file > 0 then rows_quarantined / rows_in_file end as quarantined_share "
-        "from ops.loads where dataset = 'ledger' order by period, source_file",
-        [],
+        "from ops.loads where dataset = 'ledger' and period in (select unnest(?::varchar[])) "
+        "order by period, loaded_at",
+        [[str(p) for p in Period.parse(period).window(settings.features.window_months)]],
     )
     models = _rows(con, "select * from ml.model_runs where run_id = ? order by rmse_mean", [run_id])
     bands = (

@@ -170,15 +170,31 @@ class ValidationSummary:
         return {**asdict(self), "quarantined_share": self.quarantined_share}
 
 
+# The load's records with helper columns the suite's rules read: parsed values, and whether a txn_id
+# came in an earlier file that was accepted, or is being validated in the same run ('loaded'), and was
+# not quarantined there.
 _PARSED_QUERY = """
+with this_load as (
+    select loaded_at from ops.loads where load_id = $load_id
+),
+previous as (
+    select distinct r.txn_id
+    from raw.ledger_lines as r
+    inner join ops.loads as l on l.load_id = r.load_id and l.dataset = 'ledger'
+        and l.status in ('accepted', 'loaded')
+    anti join quarantine.ledger_lines as q on q.load_id = r.load_id and q.source_line = r.source_line
+    where r.load_id <> $load_id and l.loaded_at < (select loaded_at from this_load)
+)
 select
-    source_line,
+    cur.source_line,
     {columns},
-    try_cast(amount as decimal(18, 2))::double as amount_value,
-    try_strptime(booking_date, '%Y-%m-%d')::date as booking_date_value
-from raw.ledger_lines
-where load_id = $load_id
-order by source_line
+    try_cast(cur.amount as decimal(18, 2))::double as amount_value,
+    try_strptime(cur.booking_date, '%Y-%m-%d')::date as booking_date_value,
+    previous.txn_id is not null as txn_id_loaded_before
+from raw.ledger_lines as cur
+left join previous on previous.txn_id = cur.txn_id
+where cur.load_id = $load_id
+order by cur.source_line
 """
 
 
@@ -207,7 +223,7 @@ def validate_load(
             for item in r.result.get("unexpected_index_list") or []:
                 failures[int(item["source_line"])][rule] = f"{column}={item.get(column)!r}"
 
-    query = _PARSED_QUERY.format(columns=", ".join(LEDGER_COLUMNS))
+    query = _PARSED_QUERY.format(columns=", ".join(f"cur.{c}" for c in LEDGER_COLUMNS))
     reader = con.sql(query, params={"load_id": load_id}).to_arrow_reader(settings.quality.chunk_rows)
     for batch in reader:
         collect(_run(f"{suite_name}.row", parts.row, batch.to_pandas(), params))
@@ -302,9 +318,10 @@ def validate_features(con: duckdb.DuckDBPyConnection, suite_name: str = "custome
     ):
         if not r.success:
             ids = [str(item.get("customer_id")) for item in (r.result.get("unexpected_index_list") or [])]
+            examples = list(dict.fromkeys(ids))[:_EXAMPLE_IDS]
             problems.append(
-                f"features.customer breaks rule {r.expectation_config.meta['rule']} for {len(ids)} customer(s), "
-                f"e.g. {', '.join(ids[:_EXAMPLE_IDS]) or 'the table as a whole'}"
+                f"features.customer breaks rule {r.expectation_config.meta['rule']} in {len(ids)} row(s), "
+                f"e.g. customer {', '.join(examples) or 'the table as a whole'}"
             )
     return problems
 

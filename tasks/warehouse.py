@@ -110,9 +110,20 @@ def run_sql_file(
 
     The file holds a query (`select * from final`); this wraps it in `create or replace table`.
     """
-    query = sql_file(layer, name).read_text().strip().rstrip(";")
-    used = {k: v for k, v in (params or {}).items() if f"${k}" in query}
-    con.execute(f"create or replace table {layer}.{name} as\n{query}", used)
+    con.execute(
+        f"create or replace table {layer}.{name} as\n{read_query(layer, name)}", bound(layer, name, params)
+    )
+
+
+def read_query(layer: str, name: str) -> str:
+    """The query in `warehouse/sql/<layer>/<name>.sql`, without a trailing semicolon."""
+    return sql_file(layer, name).read_text().strip().rstrip(";")
+
+
+def bound(layer: str, name: str, params: Mapping[str, Any] | None) -> dict[str, Any]:
+    """The parameters the file actually uses (DuckDB refuses unused named parameters)."""
+    query = read_query(layer, name)
+    return {k: v for k, v in (params or {}).items() if f"${k}" in query}
 
 
 def scalar(con: duckdb.DuckDBPyConnection, query: str, params: Any = None) -> Any:

@@ -163,8 +163,8 @@ def test_feature_suite_passes_real_features_and_names_broken_rules(con, ledger_c
         "insert into features.customer select * from features.customer where customer_id = 'C1'"
     )
     problems = validate_features(ledger_con_with_features)
-    assert "features.customer breaks rule one_row_per_customer for 2 customer(s), e.g. C1, C1" in problems
-    assert "features.customer breaks rule debit_count_not_negative for 1 customer(s), e.g. C2" in problems
+    assert "features.customer breaks rule one_row_per_customer in 2 row(s), e.g. customer C1" in problems
+    assert "features.customer breaks rule debit_count_not_negative in 1 row(s), e.g. customer C2" in problems
 
 
 @pytest.fixture
@@ -204,3 +204,39 @@ def test_a_header_name_with_a_space_stops_at_the_contract_rule_naming_it(con, tm
     [manifest] = find_manifests(landing, "2026-10")
     with pytest.raises(GateStopped, match="columns_match_contract: .*' account_id'"):
         load_extract(con, manifest, "run-1")
+
+
+def test_a_booking_sent_again_in_a_later_file_is_quarantined_not_dropped(con, settings, tmp_path):
+    import hashlib
+
+    landing = _copy(tmp_path, "ledger_good")
+    _, v = _ingest(con, landing, settings)
+    settle_loads(con, [v.to_dict()], quality_gate([v.to_dict()], settings))
+    folder = landing / "2026-10"
+    header = (folder / "ledger-2026-10.csv").read_text().splitlines()[0]
+    late = folder / "ledger-2026-10-late.csv"
+    late.write_text(
+        header + "\n"
+        "T001,A1,C1,2026-10-01,2600.00,CRDT,EUR,2700.00,PMNT/RCDT/SALA,SALA,EMP-1,,\n"  # T001 again, new amount
+        "T100,A2,C2,2026-10-20,20.00,DBIT,EUR,367.01,PMNT/CCRD/POSD,,MER-3,5812,South Reach\n"
+    )
+    (folder / "ledger-2026-10-late.manifest.json").write_text(
+        json.dumps(
+            {
+                "period": "2026-10",
+                "institution": "Fixture Savings",
+                "file": late.name,
+                "sha256": hashlib.sha256(late.read_bytes()).hexdigest(),
+                "row_count": 2,
+                "credit_total": "2600.00",
+                "debit_total": "20.00",
+            }
+        )
+    )
+    [manifest] = [m for m in find_manifests(landing, "2026-10") if m.file == late.name]
+    load = load_extract(con, manifest, "run-2")
+    second = validate_load(con, load.load_id, settings)
+    assert second.rule_counts == {"txn_id_not_loaded_before": 1}
+    assert con.execute(
+        "select source_line, failed_rules from quarantine.ledger_lines where load_id = ?", [load.load_id]
+    ).fetchall() == [(2, ["txn_id_not_loaded_before"])]

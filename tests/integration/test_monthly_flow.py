@@ -30,9 +30,28 @@ def demo(home):
 
     get_settings.cache_clear()
     s = get_settings()
-    return generate(
+    files = generate(
         s.demo_landing_dir, s.demo_answers_path, customers=CUSTOMERS, months=3, end_period="2026-10", seed=11
     )
+    _spoil_last_month(files)
+    return files
+
+
+def _spoil_last_month(files) -> None:
+    """Append two bad records to the last extract (well under the 1% quarantine limit) and re-issue its
+    manifest, as a sender would: a booking from the previous file sent again, and an unreadable amount."""
+    import hashlib
+
+    last, previous = files.extracts[-1], files.extracts[-2]
+    resent = previous.read_text().splitlines()[1]
+    fields = resent.split(",")
+    bad_amount = ",".join([fields[0].replace("CMS", "BAD"), *fields[1:4], "1O.00", *fields[5:]])  # letter O
+    with last.open("a") as f:
+        f.write(resent + "\n" + bad_amount + "\n")
+    manifest = json.loads(files.manifests[-1].read_text())
+    manifest["row_count"] += 2
+    manifest["sha256"] = hashlib.sha256(last.read_bytes()).hexdigest()
+    files.manifests[-1].write_text(json.dumps(manifest))
 
 
 @pytest.fixture(scope="module")
@@ -83,8 +102,12 @@ def test_every_stage_is_recorded_in_ops_runs(home, first_run):
 def test_rows_in_equal_rows_staged_plus_quarantined(home, first_run, demo):
     in_files = sum(json.loads(m.read_text())["row_count"] for m in demo.manifests)
     staged = _q(home, "select count(*) from staging.transactions")[0][0]
-    quarantined = _q(home, "select count(*) from quarantine.ledger_lines")[0][0]
-    assert in_files == staged + quarantined == demo.rows
+    rules = _q(home, "select failed_rules from quarantine.ledger_lines order by source_line")
+    assert in_files == staged + len(rules) == demo.rows + 2
+    assert rules == [
+        (["txn_id_not_loaded_before", "booking_date_in_period"],),  # the resent booking (dated last month)
+        (["booking_date_in_period", "amount_format"],),  # the unreadable amount (built from the same line)
+    ]
 
 
 def test_readers_open_the_published_copy_while_the_warehouse_is_held(home, first_run):
@@ -174,6 +197,7 @@ def test_bad_extract_stops_the_run_at_the_quality_gate(home, first_run, monkeypa
         monthly_run("2026-10", landing)
     assert _q(tmp_path / "state", "select status from ops.runs") == [("stopped",)]
     assert _q(tmp_path / "state", "select status from ops.loads where dataset = 'ledger'") == [("rejected",)]
+    assert _q(tmp_path / "state", "select gate, decision from published.decisions") == [("quality", "stop")]
 
 
 def test_cli_names_the_missing_period_folder_without_a_traceback(prefect_api, tmp_path, monkeypatch):

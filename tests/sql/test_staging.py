@@ -23,7 +23,8 @@ def test_records_of_a_load_not_yet_accepted_are_invisible(con, ledger):
     assert con.execute("select count(*) from staging.transactions").fetchall()[0][0] == 0
 
 
-def test_a_txn_id_sent_twice_keeps_its_first_booking(con, ledger):
+def test_a_txn_id_twice_in_one_load_never_doubles_in_staging(con, ledger):
+    # Validation quarantines both copies; staging still never holds a txn_id twice (belt and braces).
     ledger.add("C1", date(2026, 10, 1), 10.0, txn_id="DUP")
     ledger.add("C1", date(2026, 10, 2), 99.0, txn_id="DUP")
     ledger.load()
@@ -48,3 +49,25 @@ def test_payroll_is_recognised_by_purpose_or_sub_family(con, ledger):
         "select amount::double, is_payroll_coded from staging.transactions order by amount"
     ).fetchall()
     assert got == [(1.0, True), (2.0, True), (3.0, False), (4.0, False), (5.0, False)]
+
+
+def test_a_txn_id_in_a_later_accepted_load_keeps_the_earlier_booking(con, ledger):
+    from tasks.contract import LEDGER_COLUMNS
+
+    ledger.add("C1", date(2026, 10, 1), 10.0, txn_id="DUP")
+    ledger.load()  # load L1, loaded 2026-11-02 06:00
+    con.execute(
+        "insert into ops.loads (load_id, dataset, period, source_file, sha256, status, loaded_at) "
+        "values ('L0', 'ledger', '2026-10', 'g.csv', 'z', 'accepted', ?)",
+        [datetime(2026, 11, 3)],
+    )
+    values = {**ledger.lines[0], "amount": "99.00"}
+    con.execute(
+        f"insert into raw.ledger_lines (load_id, source_file, source_line, {', '.join(LEDGER_COLUMNS)}) "
+        f"values ('L0', 'g.csv', 2, {', '.join('?' * len(LEDGER_COLUMNS))})",
+        [values[c] for c in LEDGER_COLUMNS],
+    )
+    run_sql_file(con, "staging", "transactions")
+    assert con.execute("select amount::double, load_id from staging.transactions").fetchall() == [
+        (10.0, "L1")
+    ]

@@ -60,3 +60,16 @@ def test_status_while_a_run_holds_the_warehouse_says_so(tmp_path):
         writer.close()
     assert proc.returncode == 2
     assert "is in use by another process" in proc.stderr and "Traceback" not in proc.stderr
+
+
+@pytest.mark.parametrize(
+    "args, message",
+    [
+        (["--format", "xlsx"], "xlsx"),  # only csv and parquet exist
+        (["--months", "0"], "--months"),  # at least one month
+        (["--end-period", "2026-1"], "is not a month written YYYY-MM"),
+    ],
+)
+def test_demo_options_are_checked_before_anything_runs(args, message):
+    code, output = _run("demo", *args)
+    assert code == 2 and message in output and "Traceback" not in output

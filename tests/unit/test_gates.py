@@ -75,3 +75,23 @@ def test_accuracy_gate_treats_a_missing_figure_as_a_failure():
 def test_accuracy_gate_stops_when_no_model_could_be_trained():
     d = accuracy_gate(_train(n_labelled=6, champion=None, note="only 6 labelled customers"), Settings())
     assert not d.passed and "only 6 labelled customers" in d.reason
+
+
+def test_a_stop_raised_after_a_passed_gate_replaces_the_pass(con):
+    from tasks.gates import Decision, record_decision, record_stop
+
+    record_decision(con, "r1", "2026-10", Decision("quality", True, "extracts within the limit"))
+    record_stop(con, "r1", "2026-10", "quality", "features.customer breaks rule one_row_per_customer")
+    assert con.execute("select decision, reason from published.decisions").fetchall() == [
+        ("stop", "features.customer breaks rule one_row_per_customer")
+    ]
+
+
+def test_a_stop_with_figures_is_not_overwritten(con):
+    from tasks.gates import Decision, record_decision, record_stop
+
+    record_decision(con, "r1", "2026-10", Decision("quality", False, "share too high", {"share": 0.2}))
+    record_stop(con, "r1", "2026-10", "quality", "quality gate stopped the run: share too high")
+    assert con.execute("select reason, figures from published.decisions").fetchall() == [
+        ("share too high", '{"share": 0.2}')
+    ]

@@ -136,3 +136,11 @@ def test_manifest_with_a_bad_period_names_the_manifest(tmp_path):
     path = _manifest(tmp_path, period="2026-1")
     with pytest.raises(ExtractError, match=f"manifest {path}: field period: period '2026-1' is not a month"):
         read_manifest(path)
+
+
+def test_contract_columns_and_the_suite_header_rule_agree():
+    # Two declarations of one contract (code that loads, the rule that checks): they must not drift.
+    from tasks.validate import read_suite
+
+    [rule] = read_suite("ledger_lines").table
+    assert rule["kwargs"]["column_set"] == list(LEDGER_COLUMNS)

@@ -15,7 +15,8 @@ predictions as (
 valued as (
     select
         customer_id,
-        coalesce(annual_salary, estimate) as annual_income_estimate,
+        -- Rounded before banding, so the published amount and its band always agree.
+        round(coalesce(annual_salary, estimate), 2) as annual_income_estimate,
         case when annual_salary is not null then 'observed_salary' else 'model_estimate' end as band_source
     from predictions
 ),
@@ -35,7 +36,7 @@ final as (
         customer_id,
         income_band,
         band_source,
-        round(annual_income_estimate, 2)::decimal(18, 2) as annual_income_estimate,
+        annual_income_estimate::decimal(18, 2) as annual_income_estimate,
         $model_version as model_version,
         $published_at::timestamp as published_at
     from banded
