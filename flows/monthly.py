@@ -5,7 +5,7 @@ from __future__ import annotations
 import uuid
 from pathlib import Path
 
-from prefect import flow
+from prefect import flow, get_run_logger
 from prefect.runtime import flow_run
 
 from tasks.alerts import alert_owners_hook
@@ -13,13 +13,22 @@ from tasks.errors import GateStopped
 from tasks.features import build_features_task
 from tasks.gates import accuracy_gate_task, quality_gate_task, record_stop_task
 from tasks.ingest import find_extracts_task, ingest_customers_task, ingest_extract_task
-from tasks.publish import publish_task
+from tasks.publish import publish_task, refresh_reader_copy_task
 from tasks.report import report_task
 from tasks.runlog import RunLog
 from tasks.settings import get_settings
 from tasks.train import train_task
 from tasks.validate import validate_features_task, validate_load_task
 from tasks.warehouse import Period
+
+
+def _best_effort(task_fn, *args):
+    """Run a follow-up task on the way out of a stopped run; its failure must not hide the stop."""
+    try:
+        return task_fn(*args)
+    except Exception as exc:  # noqa: BLE001 - reported, then the original stop is raised
+        get_run_logger().warning("%s failed after the run stopped: %s", task_fn.name, exc)
+        return None
 
 
 @flow(
@@ -73,14 +82,21 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> dict:
                 result["publish"] = stage["detail"] = publish_task(
                     warehouse, run_id, period, train["model_version"], settings
                 )
+                refresh_reader_copy_task(warehouse, settings)
         with log.stage("report"):
             result["report"] = report_task(warehouse, run_id, period, settings)
         if not accuracy["passed"]:
-            raise GateStopped("accuracy", accuracy["reason"] + f" — report: {result['report']}")
+            raise GateStopped("accuracy", accuracy["reason"]).with_report(result["report"])
     except GateStopped as exc:
         record_stop_task(warehouse, run_id, period, exc.gate, exc.reason)
-        log.finish("withheld" if exc.gate == "accuracy" else "stopped", str(exc))
-        raise
+        stop = exc
+        if exc.gate != "accuracy":  # the accuracy path wrote its report already
+            stop = exc.with_report(_best_effort(report_task, warehouse, run_id, period, settings))
+        _best_effort(refresh_reader_copy_task, warehouse, settings)
+        log.finish("withheld" if exc.gate == "accuracy" else "stopped", str(stop))
+        if stop is exc:
+            raise
+        raise stop from None
     except BaseException as exc:
         log.finish("failed", f"{type(exc).__name__}: {exc}")
         raise

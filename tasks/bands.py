@@ -57,5 +57,9 @@ def write_band_table(con: duckdb.DuckDBPyConnection, edges: Sequence[float], cur
     """(Re)write ref.income_bands from settings; the publish SQL joins on it."""
     bands = band_table(edges, currency)
     con.register("band_rows", bands)
-    con.execute("create or replace table ref.income_bands as select * from band_rows")
+    con.execute("delete from ref.income_bands")
+    con.execute(
+        "insert into ref.income_bands select band_index, income_band, lower_bound, upper_bound, band_label "
+        "from band_rows"
+    )
     con.unregister("band_rows")

@@ -355,7 +355,9 @@ def generate(
     if file_format not in ("csv", "parquet"):
         raise LedgerbandError(f"demo file format must be csv or parquet, not {file_format!r}")
     if not 1 <= months <= 24 or customers < 50:
-        raise LedgerbandError(f"demo needs 1 to 24 months and at least 50 customers (got {months}, {customers})")
+        raise LedgerbandError(
+            f"demo needs 1 to 24 months and at least 50 customers (got {months}, {customers})"
+        )
     rng = np.random.default_rng(seed)
     periods = Period.parse(end_period).window(months)
     start, end = periods[0].start, periods[-1].end

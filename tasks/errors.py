@@ -21,6 +21,10 @@ class GateStopped(LedgerbandError):
         self.gate = gate
         self.reason = reason
 
+    def with_report(self, report: str | None) -> "GateStopped":
+        """The same stop, its message pointing at the run report (when one was written)."""
+        return GateStopped(self.gate, f"{self.reason} — report: {report}") if report else self
+
 
 class ValidationEngineError(LedgerbandError):
     """The expectation engine could not evaluate a rule (never treated as pass or fail)."""

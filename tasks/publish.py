@@ -103,6 +103,12 @@ def _sql_path(path: Path) -> str:
 @task(name="publish-snapshot", cache_policy=NO_CACHE, **IO_RETRIES)
 def publish_task(warehouse: Path, run_id: str, period: str, model_version: str, settings: Settings) -> dict:
     with open_warehouse(warehouse) as con:
-        result = publish_snapshot(con, run_id, period, model_version, settings)
-        result["reader_copy"] = str(export_reader_copy(con, settings.published_path))
-    return result
+        return publish_snapshot(con, run_id, period, model_version, settings)
+
+
+@task(name="refresh-reader-copy", cache_policy=NO_CACHE, **IO_RETRIES)
+def refresh_reader_copy_task(warehouse: Path, settings: Settings) -> str:
+    """After every run that reached a decision: readers see the current snapshot and every decision,
+    including a month that was withheld or stopped."""
+    with open_warehouse(warehouse) as con:
+        return str(export_reader_copy(con, settings.published_path))

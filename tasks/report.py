@@ -40,6 +40,7 @@ def _rows(con: duckdb.DuckDBPyConnection, query: str, params: list) -> list[dict
 
 def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: Settings) -> dict:
     """Everything the report shows, read back from the warehouse (the report computes nothing new)."""
+    window = [str(p) for p in Period.parse(period).window(settings.features.window_months)]
     run = _rows(con, "select * from ops.runs where run_id = ?", [run_id])
     decisions = _rows(con, "select * from published.decisions where run_id = ? order by decided_at", [run_id])
     for d in decisions:
@@ -51,13 +52,12 @@ def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: S
         "case when rows_in_file > 0 then rows_quarantined / rows_in_file end as quarantined_share "
         "from ops.loads where dataset = 'ledger' and period in (select unnest(?::varchar[])) "
         "order by period, loaded_at",
-        [[str(p) for p in Period.parse(period).window(settings.features.window_months)]],
+        [window],
     )
     models = _rows(con, "select * from ml.model_runs where run_id = ? order by rmse_mean", [run_id])
-    bands = (
-        _rows(
-            con,
-            """
+    bands = _rows(
+        con,
+        """
         select b.band_index, b.income_band, b.band_label,
                count(h.customer_id) filter (where h.band_source = 'observed_salary') as observed,
                count(h.customer_id) filter (where h.band_source = 'model_estimate') as estimated,
@@ -66,10 +66,7 @@ def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: S
         left join published.income_bands_history as h on h.income_band = b.income_band and h.run_id = ?
         group by all order by b.band_index
         """,
-            [run_id],
-        )
-        if _has_table(con, "ref", "income_bands")
-        else []
+        [run_id],
     )
     by_region = _rows(
         con,
@@ -81,6 +78,22 @@ def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: S
     for r in by_region:
         regions.setdefault(r["home_region"], {})[r["income_band"]] = r["customers"]
     published = any(d["gate"] == "accuracy" and d["decision"] == "pass" for d in decisions)
+    stopped_at = next((d["gate"] for d in decisions if d["decision"] == "stop"), None)
+    quarantine = _rows(
+        con,
+        """
+        select rule, count(*)::bigint as records, min(q.reason) as example
+        from (
+            select unnest(failed_rules) as rule, reason, load_id
+            from quarantine.ledger_lines
+        ) as q
+        inner join ops.loads as l on l.load_id = q.load_id
+        where l.period in (select unnest(?::varchar[]))
+        group by rule
+        order by records desc, rule
+        """,
+        [window],
+    )
     return {
         "run_id": run_id,
         "period": period,
@@ -89,6 +102,8 @@ def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: S
         "stages": json.loads(run[0]["stages"]) if run and run[0]["stages"] else [],
         "decisions": decisions,
         "published": published,
+        "stopped_at": stopped_at,
+        "quarantine": quarantine,
         "loads": loads,
         "models": models,
         "bands": bands,
@@ -105,15 +120,6 @@ def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: S
         },
         "published_path": str(settings.published_path),
     }
-
-
-def _has_table(con: duckdb.DuckDBPyConnection, schema: str, name: str) -> bool:
-    return bool(
-        con.execute(
-            "select count(*) from information_schema.tables where table_schema = ? and table_name = ?",
-            [schema, name],
-        ).fetchall()[0][0]
-    )
 
 
 def render(context: dict) -> str:

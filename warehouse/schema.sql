@@ -95,6 +95,15 @@ select * from (values
     ('monthly', 28.5, 35.0, 12.0)
 ) as t (frequency, min_gap_days, max_gap_days, periods_per_year);
 
+-- The band scheme in force, rewritten from settings at every publish. Bands are half-open [lower, upper).
+create table if not exists ref.income_bands (
+    band_index integer not null,
+    income_band varchar not null,
+    lower_bound double,                    -- null: no lower bound
+    upper_bound double,                    -- null: no upper bound
+    band_label varchar not null
+);
+
 create table if not exists ml.model_runs (
     run_id varchar not null,
     period varchar not null,

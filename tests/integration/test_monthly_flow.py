@@ -177,7 +177,12 @@ def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(home, first_
     assert status == "withheld" and "min_band_accuracy" in error
     alerts = [json.loads(line) for line in (home / "alerts" / "alerts.jsonl").read_text().splitlines()]
     assert alerts[-1]["state"] == "Failed" and "min_band_accuracy" in alerts[-1]["message"]
-    assert "Withheld" in (home / "reports" / "2026-10" / "index.html").read_text()
+    assert "Withheld by the accuracy gate" in (home / "reports" / "2026-10" / "index.html").read_text()
+    # Readers see the withheld decision next to the unchanged current snapshot.
+    reader = duckdb.connect(str(home / "published" / "ledgerband_published.duckdb"), read_only=True)
+    assert reader.execute("select run_id from snapshots where is_current").fetchall() == current
+    assert ("accuracy", "stop") in reader.execute("select gate, decision from decisions").fetchall()
+    reader.close()
 
 
 def test_bad_extract_stops_the_run_at_the_quality_gate(home, first_run, monkeypatch, tmp_path):
@@ -198,6 +203,14 @@ def test_bad_extract_stops_the_run_at_the_quality_gate(home, first_run, monkeypa
     assert _q(tmp_path / "state", "select status from ops.runs") == [("stopped",)]
     assert _q(tmp_path / "state", "select status from ops.loads where dataset = 'ledger'") == [("rejected",)]
     assert _q(tmp_path / "state", "select gate, decision from published.decisions") == [("quality", "stop")]
+    html = (tmp_path / "state" / "reports" / "2026-10" / "index.html").read_text()
+    assert "Stopped by the quality gate" in html and "amount_format" in html and "line 4" in html
+    reader = duckdb.connect(
+        str(tmp_path / "state" / "published" / "ledgerband_published.duckdb"), read_only=True
+    )
+    assert reader.execute("select gate, decision from decisions").fetchall() == [("quality", "stop")]
+    assert reader.execute("select count(*) from income_bands").fetchall() == [(0,)]
+    reader.close()
 
 
 def test_cli_names_the_missing_period_folder_without_a_traceback(prefect_api, tmp_path, monkeypatch):
