@@ -36,6 +36,8 @@ WHOLE_COLUMN_TYPES = frozenset({"expect_column_values_to_be_unique"})
 ROW_TYPE_PREFIX = "expect_column_values_to_"
 RESULT_FORMAT = {"result_format": "COMPLETE", "unexpected_index_column_names": ["source_line"]}
 _EXAMPLE_IDS = 3
+# Helper columns computed for the rules, and the received field a person should see instead.
+_SHOWN_AS = {"amount_value": "amount", "booking_date_value": "booking_date", "txn_id_loaded_before": "txn_id"}
 _EXAMPLES_KEPT = 5
 
 
@@ -214,19 +216,24 @@ def validate_load(
     params = {"period_start": period.start, "period_end": period.end}
     failures: dict[int, dict[str, str]] = defaultdict(dict)  # line -> rule -> offending value
 
-    def collect(results: list[Any]) -> None:
+    def collect(results: list[Any], frame: pd.DataFrame) -> None:
+        text = frame.set_index("source_line")
         for r in results:
             if r.success:
                 continue
             rule = r.expectation_config.meta["rule"]
             column = r.expectation_config.kwargs.get("column")
+            shown = _SHOWN_AS.get(column, column)  # a helper column is reported by the field as received
             for item in r.result.get("unexpected_index_list") or []:
-                failures[int(item["source_line"])][rule] = f"{column}={item.get(column)!r}"
+                line = int(item["source_line"])
+                value = text.at[line, shown] if shown in text.columns else item.get(column)
+                failures[line][rule] = f"{shown}={None if pd.isna(value) else str(value)!r}"
 
     query = _PARSED_QUERY.format(columns=", ".join(f"cur.{c}" for c in LEDGER_COLUMNS))
     reader = con.sql(query, params={"load_id": load_id}).to_arrow_reader(settings.quality.chunk_rows)
     for batch in reader:
-        collect(_run(f"{suite_name}.row", parts.row, batch.to_pandas(), params))
+        frame = batch.to_pandas()
+        collect(_run(f"{suite_name}.row", parts.row, frame, params), frame)
     for exp in parts.whole_column:
         column = exp["kwargs"]["column"]
         frame = (
@@ -237,7 +244,7 @@ def validate_load(
             .to_arrow_table()
             .to_pandas()
         )
-        collect(_run(f"{suite_name}.whole", [exp], frame))
+        collect(_run(f"{suite_name}.whole", [exp], frame), frame)
 
     order = {rule: i for i, rule in enumerate(parts.rule_names)}
     now = datetime.now()
