@@ -82,13 +82,15 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> dict:
                 result["publish"] = stage["detail"] = publish_task(
                     warehouse, run_id, period, train["model_version"], settings
                 )
-                refresh_reader_copy_task(warehouse, settings)
         with log.stage("report"):
             result["report"] = report_task(warehouse, run_id, period, settings)
+        if accuracy["passed"]:
+            with log.stage("reader_copy") as stage:
+                stage["detail"] = refresh_reader_copy_task(warehouse, settings)
         if not accuracy["passed"]:
             raise GateStopped("accuracy", accuracy["reason"]).with_report(result["report"])
     except GateStopped as exc:
-        record_stop_task(warehouse, run_id, period, exc.gate, exc.reason)
+        _best_effort(record_stop_task, warehouse, run_id, period, exc.gate, exc.reason)
         stop = exc
         if exc.gate != "accuracy":  # the accuracy path wrote its report already
             stop = exc.with_report(_best_effort(report_task, warehouse, run_id, period, settings))

@@ -154,12 +154,16 @@ def settle_loads(con: duckdb.DuckDBPyConnection, validations: list[dict], decisi
 def record_stop(con: duckdb.DuckDBPyConnection, run_id: str, period: str, gate: str, reason: str) -> None:
     """Write down a stop raised outside a gate task (manifest, header or feature rules), unless that gate
     already recorded its own stop with figures for this run."""
-    already = con.execute(
-        "select count(*) from published.decisions where run_id = ? and gate = ? and decision = 'stop'",
+    earlier = con.execute(
+        "select decision, figures, thresholds from published.decisions where run_id = ? and gate = ?",
         [run_id, gate],
-    ).fetchall()[0][0]
-    if not already:
-        record_decision(con, run_id, period, Decision(gate, False, reason))
+    ).fetchall()
+    if earlier and earlier[0][0] == "stop":
+        return
+    # A later stop of a gate that had passed (e.g. the feature suite after the extracts passed) keeps the
+    # figures of the pass, so the record still says what was measured.
+    figures, thresholds = (json.loads(earlier[0][1]), json.loads(earlier[0][2])) if earlier else ({}, {})
+    record_decision(con, run_id, period, Decision(gate, False, reason, figures, thresholds))
 
 
 @task(name="record-gate-stop", cache_policy=NO_CACHE)

@@ -173,19 +173,26 @@ class ValidationSummary:
 
 
 # The load's records with helper columns the suite's rules read: parsed values, and whether a txn_id
-# came in an earlier file that was accepted, or is being validated in the same run ('loaded'), and was
-# not quarantined there.
+# came in an earlier file that was accepted, or was validated earlier in the same run, and was not
+# quarantined there.
 _PARSED_QUERY = """
 with this_load as (
-    select loaded_at from ops.loads where load_id = $load_id
+    select loaded_at, run_id from ops.loads where load_id = $load_id
 ),
 previous as (
     select distinct r.txn_id
     from raw.ledger_lines as r
     inner join ops.loads as l on l.load_id = r.load_id and l.dataset = 'ledger'
-        and l.status in ('accepted', 'loaded')
     anti join quarantine.ledger_lines as q on q.load_id = r.load_id and q.source_line = r.source_line
-    where r.load_id <> $load_id and l.loaded_at < (select loaded_at from this_load)
+    where r.load_id <> $load_id
+        and (
+            l.status = 'accepted'
+            -- a file validated earlier in this same run; a 'loaded' file left by a run that stopped
+            -- or crashed is not evidence of anything
+            or (l.status = 'loaded' and l.run_id = (select run_id from this_load)
+                and l.loaded_at < (select loaded_at from this_load))
+        )
+        and r.txn_id in (select txn_id from raw.ledger_lines where load_id = $load_id)
 )
 select
     cur.source_line,

@@ -240,3 +240,15 @@ def test_a_booking_sent_again_in_a_later_file_is_quarantined_not_dropped(con, se
     assert con.execute(
         "select source_line, failed_rules from quarantine.ledger_lines where load_id = ?", [load.load_id]
     ).fetchall() == [(2, ["txn_id_not_loaded_before"])]
+
+
+def test_a_file_left_unsettled_by_a_stopped_run_does_not_poison_its_correction(con, settings, tmp_path):
+    landing = _copy(tmp_path, "ledger_good")
+    _ingest(con, landing, settings)  # run-1 loads and validates, then stops before its gate settles the load
+    extract = landing / "2026-10" / "ledger-2026-10.csv"
+    extract.write_text(extract.read_text().replace("2554.90", "2554.91"))  # the sender corrects a balance
+    _rewrite_manifest(landing)
+    [manifest] = find_manifests(landing, "2026-10")
+    load = load_extract(con, manifest, "run-2")
+    v = validate_load(con, load.load_id, settings)
+    assert v.rows_quarantined == 0, v.examples

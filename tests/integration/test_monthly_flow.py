@@ -95,6 +95,7 @@ def test_every_stage_is_recorded_in_ops_runs(home, first_run):
         "accuracy_gate",
         "publish",
         "report",
+        "reader_copy",
     ]
     assert all(s["status"] == "ok" and s["seconds"] is not None for s in stages)
 

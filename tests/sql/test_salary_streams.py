@@ -161,3 +161,36 @@ def test_pay_outside_the_window_is_ignored(con, ledger):
     ledger.load()
     _build(con)
     assert _stream(con, "C1") == []
+
+
+def test_a_same_size_extra_payment_never_doubles_the_salary(con, ledger):
+    # Found in review: 28 Aug, 28 Sep, 28 Oct plus an equal payment on 15 Oct gave gaps 31, 17, 13 and a
+    # semi-monthly salary of 48,000. Four payments in 61 days fit no rhythm, so no label is better.
+    ledger.pay("C1", [date(2026, 8, 28), date(2026, 9, 28), date(2026, 10, 28)], 2000.0)
+    ledger.pay("C1", [date(2026, 10, 15)], 2000.0, txn_id="EXTRA")
+    ledger.load()
+    _build(con)
+    [(freq, _, annual, _)] = _stream(con, "C1")
+    assert (freq, annual) == ("irregular", None)
+
+
+@pytest.mark.parametrize(
+    "parts",
+    [(1800.0, 200.0), (1200.0, 900.0)],  # salary plus a same-day allowance; a salary split in two credits
+)
+def test_same_day_credits_from_one_payer_are_one_payment(con, ledger, parts):
+    for part in parts:
+        ledger.pay("C1", [date(2026, 8, 28), date(2026, 9, 28), date(2026, 10, 28)], part)
+    ledger.load()
+    _build(con)
+    [(freq, amount, annual, _)] = _stream(con, "C1")
+    assert (freq, amount, annual) == ("monthly", sum(parts), pytest.approx(12 * sum(parts)))
+
+
+def test_a_large_pay_rise_keeps_the_stream_current(con, ledger):
+    ledger.pay("C1", every(date(2026, 8, 7), 14, 4), 1000.0)  # 7 Aug .. 18 Sep
+    ledger.pay("C1", every(date(2026, 10, 2), 14, 3), 1700.0)  # +70% from 2 Oct: outside the regular band
+    ledger.load()
+    _build(con)
+    [(freq, _, _, current)] = _stream(con, "C1")
+    assert freq == "fortnightly" and current is True

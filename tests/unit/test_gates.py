@@ -80,10 +80,12 @@ def test_accuracy_gate_stops_when_no_model_could_be_trained():
 def test_a_stop_raised_after_a_passed_gate_replaces_the_pass(con):
     from tasks.gates import Decision, record_decision, record_stop
 
-    record_decision(con, "r1", "2026-10", Decision("quality", True, "extracts within the limit"))
+    record_decision(
+        con, "r1", "2026-10", Decision("quality", True, "extracts within the limit", {"f.csv": 0.0})
+    )
     record_stop(con, "r1", "2026-10", "quality", "features.customer breaks rule one_row_per_customer")
-    assert con.execute("select decision, reason from published.decisions").fetchall() == [
-        ("stop", "features.customer breaks rule one_row_per_customer")
+    assert con.execute("select decision, reason, figures from published.decisions").fetchall() == [
+        ("stop", "features.customer breaks rule one_row_per_customer", '{"f.csv": 0.0}')
     ]
 
 

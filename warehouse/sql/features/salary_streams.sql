@@ -7,8 +7,8 @@
 -- stays regular, a bonus or a small top-up does not); only they set the frequency and the pay amount.
 -- Pay frequency comes from the median gap in days between consecutive regular pay dates (robust to one
 -- date moved by a weekend or holiday). The pay amount is the median of the latest three regular
--- payments, so a pay rise takes over after two payments. A stream is current when
--- its last payment is no older than its own longest expected gap (plus a week) at the window's end.
+-- payments, so a pay rise takes over after two payments. A stream is current when its last payment
+-- (of any amount) is no older than its own longest expected gap (plus a week) at the window's end.
 
 with
 
@@ -19,18 +19,20 @@ transactions as (
 ),
 
 payroll_credits as (
+    -- One row per payer and day: a salary split in two, or paid with a same-day extra, is one payment.
     select
         customer_id,
         coalesce(counterparty_id, 'payer not given') as payer_id,
         booking_date,
-        amount
+        sum(amount) as amount
     from transactions
     where is_payroll_coded
+    group by all
 ),
 
 stream_typical as (
     select customer_id, payer_id, median(amount) as typical_amount, count(*)::bigint as all_payment_count,
-        sum(amount) as total_paid
+        sum(amount) as total_paid, max(booking_date) as last_any_pay_date
     from payroll_credits
     group by all
 ),
@@ -67,11 +69,12 @@ streams as (
     group by all
 ),
 
-classified as (
+matched as (
     select
         streams.*,
         stream_typical.all_payment_count - streams.payment_count as extra_payment_count,
         stream_typical.total_paid,
+        stream_typical.last_any_pay_date,
         coalesce(freq.frequency, 'irregular') as pay_frequency,
         freq.periods_per_year,
         freq.max_gap_days
@@ -79,6 +82,25 @@ classified as (
     inner join stream_typical using (customer_id, payer_id)
     left join ref.pay_frequencies as freq
         on streams.median_gap_days between freq.min_gap_days and freq.max_gap_days
+),
+
+classified as (
+    -- The rhythm must also explain how many payments there were: over the span from first to last
+    -- regular payment it predicts span x periods_per_year / 365.25 + 1 of them. A stream off by more
+    -- than half a payment (an extra payment on another day can fake a shorter median gap) is
+    -- irregular: no label, and the model estimates the customer instead of a doubled salary.
+    select
+        * replace (
+            case when expected_ok then pay_frequency else 'irregular' end as pay_frequency,
+            case when expected_ok then periods_per_year end as periods_per_year
+        )
+    from (
+        select
+            *,
+            abs(payment_count - ((last_pay_date - first_pay_date) * periods_per_year / 365.25 + 1)) <= 0.5
+                as expected_ok
+        from matched
+    )
 ),
 
 final as (
@@ -94,7 +116,7 @@ final as (
         periods_per_year,
         pay_amount::double as pay_amount,
         total_paid::double as total_paid,
-        coalesce($window_end::date - last_pay_date <= max_gap_days + 7, false) as is_current,
+        coalesce($window_end::date - last_any_pay_date <= max_gap_days + 7, false) as is_current,
         case
             when periods_per_year is not null then round(pay_amount::double * periods_per_year, 2)
         end as annual_salary
