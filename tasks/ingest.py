@@ -186,7 +186,10 @@ def read_records(path: Path, expected_columns: tuple[str, ...]) -> Records:
     try:
         table = pacsv.read_csv(
             path,
-            read_options=pacsv.ReadOptions(use_threads=False, block_size=1 << 24),
+            # One parser names the columns (ours, which allows a byte-order mark); Arrow skips the header.
+            read_options=pacsv.ReadOptions(
+                use_threads=False, block_size=1 << 24, column_names=header, skip_rows=1
+            ),
             parse_options=pacsv.ParseOptions(invalid_row_handler=on_invalid),
             convert_options=pacsv.ConvertOptions(
                 column_types={c: pa.string() for c in header},
@@ -205,7 +208,6 @@ def read_records(path: Path, expected_columns: tuple[str, ...]) -> Records:
     if len(lines) != table.num_rows:  # a quoted field spanning lines breaks the line arithmetic
         lines = np.arange(2, table.num_rows + 2, dtype=np.int64)
     table = table.add_column(0, "source_line", pa.array(lines))
-    header = [c for c in table.column_names if c != "source_line"]  # as Arrow read them, which is what loads
     return Records(table=table, header=header, malformed=malformed)
 
 
