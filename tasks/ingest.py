@@ -165,7 +165,7 @@ class Records:
     malformed: list[tuple[int, str, str]]  # (line, text, reason)
 
 
-def read_records(path: Path, expected_columns: tuple[str, ...]) -> Records:
+def read_records(path: Path) -> Records:
     """Read a CSV or Parquet file as text, keeping each record's line number (header = line 1).
 
     CSV is parsed single-threaded because only then does Arrow report the line number of a record
@@ -336,7 +336,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, manifest: Manifest, run_id: str
             f"{path}: period {manifest.period} already has an accepted {path.name} (load {clash[0][0]}) with other "
             "content; replacing an accepted extract is not supported — ask the sender for a new file name"
         )
-    records = read_records(path, LEDGER_COLUMNS)
+    records = read_records(path)
     _check_header(path, records.header, LEDGER_COLUMNS, suite="ledger_lines")
 
     load_id = _new_load_id()
@@ -454,7 +454,7 @@ def load_customers(con: duckdb.DuckDBPyConnection, path: Path, run_id: str) -> L
             "skipped",
             notes=["same customer file already loaded; it is current again"],
         )
-    records = read_records(path, CUSTOMER_COLUMNS)
+    records = read_records(path)
     _check_header(path, records.header, CUSTOMER_COLUMNS, suite=None)
     if records.malformed:
         line, _, reason = records.malformed[0]

@@ -175,10 +175,6 @@ class Settings(BaseSettings):
         return self.home / "demo" / "answers" / "true_income.csv"
 
     @property
-    def prefect_home(self) -> Path:
-        return self.home / "prefect"
-
-    @property
     def alerts_log(self) -> Path:
         return self.home / "alerts" / "alerts.jsonl"
 

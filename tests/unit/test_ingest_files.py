@@ -60,7 +60,7 @@ def test_missing_period_folder_says_where_it_looked(tmp_path):
 def test_csv_records_keep_their_line_numbers_and_malformed_lines_are_returned(tmp_path):
     path = tmp_path / "x.csv"
     path.write_text("a,b,c\n1,2,3\n4,5\n6,7,8\n9,10,11,12\n13,,15\n")
-    rec = read_records(path, ("a", "b", "c"))
+    rec = read_records(path)
     assert rec.table.column("source_line").to_pylist() == [2, 4, 6]
     assert rec.table.column("a").to_pylist() == ["1", "6", "13"]
     assert rec.table.column("b").to_pylist()[2] is None  # empty field = null (extract contract)
@@ -71,7 +71,7 @@ def test_csv_records_keep_their_line_numbers_and_malformed_lines_are_returned(tm
 def test_csv_keeps_leading_zeros_and_text_as_received(tmp_path):
     path = tmp_path / "x.csv"
     path.write_text("a,b\n0042,001.50\n")
-    rec = read_records(path, ("a", "b"))
+    rec = read_records(path)
     assert rec.table.column("a").to_pylist() == ["0042"] and rec.table.column("b").to_pylist() == ["001.50"]
 
 
@@ -79,14 +79,14 @@ def test_non_utf8_file_is_refused_with_its_name(tmp_path):
     path = tmp_path / "latin.csv"
     path.write_bytes("a,b\nStra\xdfe,1\n".encode("latin-1"))
     with pytest.raises(ExtractError, match="latin.csv"):
-        read_records(path, ("a", "b"))
+        read_records(path)
 
 
 def test_parquet_records_are_numbered_and_typed_columns_become_text(tmp_path):
     path = tmp_path / "x.parquet"
     table = pa.table({"amount": pa.array(["12.50", "3.00"]).cast(pa.decimal128(18, 2)), "txn_id": ["a", "b"]})
     pq.write_table(table, path)
-    rec = read_records(path, LEDGER_COLUMNS)
+    rec = read_records(path)
     assert rec.table.column("source_line").to_pylist() == [1, 2]
     assert rec.table.column("amount").to_pylist() == ["12.50", "3.00"]
 
@@ -110,14 +110,14 @@ def test_a_month_neither_landed_nor_accepted_is_an_error_naming_the_folder(tmp_p
 def test_a_byte_order_mark_is_not_part_of_the_first_column_name(tmp_path):
     path = tmp_path / "bom.csv"
     path.write_bytes(b"\xef\xbb\xbftxn_id,amount\nT1,1.00\n")
-    rec = read_records(path, ("txn_id", "amount"))
+    rec = read_records(path)
     assert rec.header == ["txn_id", "amount"] and rec.table.column("txn_id").to_pylist() == ["T1"]
 
 
 def test_a_space_in_a_header_name_is_kept_so_the_contract_rule_can_name_it(tmp_path):
     path = tmp_path / "space.csv"
     path.write_text("txn_id, amount\nT1,1.00\n")
-    rec = read_records(path, ("txn_id", "amount"))
+    rec = read_records(path)
     assert rec.header == ["txn_id", " amount"]
     assert rec.table.column(" amount").to_pylist() == ["1.00"]  # still text, not a parsed number
 
@@ -128,7 +128,7 @@ def test_a_space_in_a_header_name_is_kept_so_the_contract_rule_can_name_it(tmp_p
 def test_only_an_empty_field_is_null(tmp_path, text):
     path = tmp_path / "x.csv"
     path.write_text(f"a,b\n{text},\n")
-    rec = read_records(path, ("a", "b"))
+    rec = read_records(path)
     assert rec.table.column("a").to_pylist() == [text] and rec.table.column("b").to_pylist() == [None]
 
 
