@@ -1,3 +1,1 @@
-"""Prefect flows: they compose the stage tasks in `tasks/` and hold no business logic."""
-
-import tasks  # noqa: F401  (sets PREFECT_HOME and friends before Prefect is imported)
+"""Prefect flows only: the monthly run, the demo, and the `ledgerband` command line. No business logic."""

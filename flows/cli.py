@@ -1,4 +1,8 @@
-"""`ledgerband` command line: demo, run, status."""
+"""`ledgerband` command line: demo, run, status.
+
+The process environment (Prefect home, offline and quiet switches) is set here, before anything imports
+Prefect: importing the package itself changes nothing.
+"""
 
 from __future__ import annotations
 
@@ -9,11 +13,10 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
+from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.runtime import configure_process_env
 from rich.console import Console
 from rich.table import Table
-
-import tasks  # noqa: F401  (process environment first)
-from tasks.errors import LedgerbandError
 
 
 class DemoFormat(StrEnum):
@@ -28,6 +31,29 @@ app = typer.Typer(
 )
 out = Console(soft_wrap=True)
 err = Console(stderr=True, soft_wrap=True)
+
+
+def _version() -> str:
+    from importlib.metadata import version
+
+    return version("ledgerband")
+
+
+def _show_version(value: bool) -> None:
+    if value:
+        out.print(f"ledgerband {_version()}", highlight=False)
+        raise typer.Exit()
+
+
+@app.callback()
+def _entry(
+    version: Annotated[
+        bool,
+        typer.Option("--version", callback=_show_version, is_eager=True, help="Print the version and exit."),
+    ] = False,
+) -> None:
+    """Monthly ledger extracts → DuckDB → quality gate → salary labels → income bands."""
+    configure_process_env()
 
 
 def _fail(exc: Exception) -> None:
@@ -70,9 +96,8 @@ def _quiet_expected_failures() -> None:
 
 
 def _settings():
+    from ledgerband.tasks.settings import get_settings
     from pydantic import ValidationError
-
-    from tasks.settings import get_settings
 
     try:
         return get_settings()
@@ -81,24 +106,24 @@ def _settings():
         raise typer.Exit(2) from None
 
 
-def _print_result(result: dict) -> None:
+def _print_result(result) -> None:
     s = _settings()
-    table = Table(title=f"Model comparison, period {result['period']} (repeated k-fold CV)")
+    table = Table(title=f"Model comparison, period {result.period} (repeated k-fold CV)")
     for col in ("candidate", "RMSE mean", "RMSE sd", "MAE mean"):
         table.add_column(col, justify="right" if col != "candidate" else "left")
-    for c in result.get("candidates", []):
-        mark = " (champion)" if c["name"] == result.get("champion") else ""
+    for c in result.train.candidates:
+        mark = " (champion)" if c["name"] == result.train.champion else ""
         table.add_row(
             c["name"] + mark, f"{c['rmse_mean']:,.0f}", f"{c['rmse_std']:,.0f}", f"{c['mae_mean']:,.0f}"
         )
     out.print(table)
-    out.print(f"[green]Accuracy gate passed:[/] {result['accuracy']['reason']}")
-    out.print(f"Published tables (readers open this file): [bold]{result['published_path']}[/]")
+    out.print(f"[green]Accuracy gate passed:[/] {result.accuracy.reason}")
+    out.print(f"Published tables (readers open this file): [bold]{result.published_path}[/]")
     out.print(f"Working warehouse: {s.warehouse_path}  (published.income_bands, published.band_summary)")
-    out.print(f"Run report: [bold]{result['report']}[/]")
+    out.print(f"Run report: [bold]{result.report}[/]")
 
 
-def _run_guarded(fn, *args, **kwargs) -> dict:
+def _run_guarded(fn, *args, **kwargs):
     _quiet_expected_failures()
     try:
         return fn(*args, **kwargs)
@@ -122,8 +147,8 @@ def demo(
 ) -> None:
     """Generate demo extracts for a fictional institution and run the monthly flow on them."""
     s = _settings()
-    from flows.demo import demo_run
-    from tasks.warehouse import Period
+    from ledgerband.flows.demo import demo_run
+    from ledgerband.tasks.period import Period
 
     if end_period is not None:
         try:
@@ -139,13 +164,12 @@ def demo(
         end_period=end_period,
         file_format=file_format.value if file_format else None,
     )
-    g = result["generated"]
+    files, run_result, t = result
     out.print(
-        f"Demo extracts: {len(g['periods'])} month(s) {g['periods'][0]}..{g['periods'][-1]}, "
-        f"{g['rows']:,} ledger records; true incomes (never read by the pipeline): {g['answers']}"
+        f"Demo extracts: {len(files.periods)} month(s) {files.periods[0]}..{files.periods[-1]}, "
+        f"{files.rows:,} ledger records; true incomes (never read by the pipeline): {files.answers}"
     )
-    _print_result(result)
-    t = result["truth_check"]
+    _print_result(run_result)
     out.print(
         f"Demo truth check (only a synthetic bank can do this): for the {t['customers_estimated']} customers "
         f"the model estimated, RMSE {t['rmse']:,.0f}, MAE {t['mae']:,.0f}, mean error {t['mean_error']:+,.0f}, "
@@ -163,7 +187,7 @@ def run(
 ) -> None:
     """Run the monthly flow for one period on the files in the landing folder."""
     s = _settings()
-    from tasks.warehouse import Period
+    from ledgerband.tasks.period import Period
 
     try:
         Period.parse(period)
@@ -172,7 +196,7 @@ def run(
     landing = landing or s.landing
     if not landing.is_dir():
         _fail(LedgerbandError(f"landing folder {landing} does not exist"))
-    from flows.monthly import monthly_run
+    from ledgerband.flows.monthly import monthly_run
 
     _print_result(_run_guarded(monthly_run, period, landing))
 
@@ -180,7 +204,7 @@ def run(
 @app.command()
 def status(limit: Annotated[int, typer.Option(help="How many recent runs to show.")] = 10) -> None:
     """Recent runs, their stages and gate outcomes (read from the working warehouse)."""
-    from tasks.warehouse import connect
+    from ledgerband.tasks.warehouse import connect
 
     s = _settings()
     if not s.warehouse_path.exists():
@@ -208,7 +232,7 @@ def status(limit: Annotated[int, typer.Option(help="How many recent runs to show
             soft_wrap=True,
             highlight=False,
         )
-        accuracy = json.loads(gates or "{}").get("accuracy", {})
+        accuracy = json.loads(gates or "{}").get("accuracy.accuracy", {})
         detail = error or accuracy.get("reason")
         if detail:
             out.print(f"    {detail}", soft_wrap=True, highlight=False)
@@ -225,7 +249,7 @@ def _stage_summary(stages: list[dict]) -> str:
     return f"{last['stage']} {last['status']} after {done} ok"
 
 
-def main() -> None:  # pragma: no cover
+def main() -> None:  # pragma: no cover - the console script
     app()
 
 

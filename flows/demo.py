@@ -2,19 +2,19 @@
 
 from __future__ import annotations
 
+from ledgerband.flows.monthly import RunResult, monthly_run
+from ledgerband.tasks.demo.generator import DemoFiles, generate
+from ledgerband.tasks.demo.truth import truth_check
+from ledgerband.tasks.settings import get_settings
+from ledgerband.tasks.warehouse import open_warehouse
 from prefect import flow, task
 from prefect.cache_policies import NO_CACHE
 
-from flows.monthly import monthly_run
-from tasks.demo_data import generate, truth_check
-from tasks.settings import get_settings
-from tasks.warehouse import open_warehouse
-
 
 @task(name="generate-demo-extracts", cache_policy=NO_CACHE)
-def generate_task(customers: int, months: int, end_period: str, seed: int, file_format: str) -> dict:
+def generate_task(customers: int, months: int, end_period: str, seed: int, file_format: str) -> DemoFiles:
     s = get_settings()
-    files = generate(
+    return generate(
         s.demo_landing_dir,
         s.demo_answers_path,
         customers=customers,
@@ -24,12 +24,13 @@ def generate_task(customers: int, months: int, end_period: str, seed: int, file_
         file_format=file_format,
         institution=s.demo.institution,
     )
-    return {
-        "landing_dir": str(files.landing_dir),
-        "periods": files.periods,
-        "rows": files.rows,
-        "answers": str(files.answers),
-    }
+
+
+@task(name="demo-truth-check", cache_policy=NO_CACHE)
+def truth_check_task(run_id: str) -> dict:
+    s = get_settings()
+    with open_warehouse(s.warehouse_path) as con:
+        return truth_check(con, s.demo_answers_path, run_id, s.bands.edges)
 
 
 @flow(name="ledgerband-demo")
@@ -39,21 +40,15 @@ def demo_run(
     end_period: str | None = None,
     seed: int | None = None,
     file_format: str | None = None,
-) -> dict:
+) -> tuple[DemoFiles, RunResult, dict]:
+    """Generate the demo bank's extracts, run the month, and check the estimates against the truth."""
     d = get_settings().demo
-    generated = generate_task(
+    files = generate_task(
         customers or d.customers,
         months or d.months,
         end_period or d.end_period,
         d.seed if seed is None else seed,
         file_format or d.file_format,
     )
-    result = monthly_run(generated["periods"][-1], generated["landing_dir"])
-    return {"generated": generated, "truth_check": truth_check_task(result["run_id"]), **result}
-
-
-@task(name="demo-truth-check", cache_policy=NO_CACHE)
-def truth_check_task(run_id: str) -> dict:
-    s = get_settings()
-    with open_warehouse(s.warehouse_path) as con:
-        return truth_check(con, s.demo_answers_path, run_id, s.bands.edges)
+    result = monthly_run(files.periods[-1], files.landing_dir)
+    return files, result, truth_check_task(result.run_id)

@@ -1,9 +1,8 @@
-"""Pipeline stages: each module is one stage, a thin Prefect wrapper over plain functions.
+"""Pipeline stages and their shared core.
 
-Importing this package first points Prefect, Great Expectations and DuckDB at the project's state
-folder and keeps them offline and quiet, so nothing is written to the user's home directory.
+One module per stage (`ingest`, `validate`, `features`, `train`, `publish`, `report`), each a thin Prefect
+task over plain functions; beside them the core every stage uses: `period`, `context` (the run context),
+`settings`, `errors`, `warehouse`, `loads`, `runlog`, `bands`, `gates/`, `alerts/`, `landing/`. The demo
+generator lives apart in `demo/`. Importing this package changes nothing in the process: environment
+set-up is done by the entry points (`ledgerband.tasks.runtime.configure_process_env`).
 """
-
-from tasks._env import configure_process_env
-
-configure_process_env()

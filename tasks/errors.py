@@ -1,5 +1,7 @@
 """Errors a user can act on. The CLI prints their message (no traceback) and exits non-zero."""
 
+from __future__ import annotations
+
 
 class LedgerbandError(Exception):
     """A problem with input, configuration or state that the operator can fix."""
@@ -12,18 +14,27 @@ class ExtractError(LedgerbandError):
 
 
 class GateStopped(LedgerbandError):
-    """A gate decided to stop the run; names the gate, the figure and the threshold."""
+    """A gate decided to stop the run; names the gate, the figure and the threshold.
+
+    Raised only by `ledgerband.tasks.gates.enforce`, after the decision is recorded.
+    """
 
     exit_code = 3
 
-    def __init__(self, gate: str, reason: str):
+    def __init__(self, gate: str, reason: str, check: str | None = None):
         super().__init__(f"{gate} gate stopped the run: {reason}")
         self.gate = gate
         self.reason = reason
+        self.check = check
 
-    def with_report(self, report: str | None) -> "GateStopped":
+    @property
+    def run_status(self) -> str:
+        """How ops.runs names the run's end: an accuracy stop withholds a sound month; others stop it."""
+        return "withheld" if self.gate == "accuracy" else "stopped"
+
+    def with_report(self, report: str | None) -> GateStopped:
         """The same stop, its message pointing at the run report (when one was written)."""
-        return GateStopped(self.gate, f"{self.reason} — report: {report}") if report else self
+        return GateStopped(self.gate, f"{self.reason} — report: {report}", self.check) if report else self
 
 
 class ValidationEngineError(LedgerbandError):

@@ -1,68 +1,46 @@
-"""Features: build the staging and feature layers from the SQL files in warehouse/sql/, in order."""
+"""Features: build the staging, intermediate and feature layers from the SQL files, in dependency order."""
 
 from __future__ import annotations
 
-from pathlib import Path
+from dataclasses import dataclass
 
 import duckdb
+from ledgerband.tasks import loads
+from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.warehouse import build_layers, open_warehouse
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
-from tasks.errors import LedgerbandError
-from tasks.ingest import accepted_periods
-from tasks.settings import Settings
-from tasks.warehouse import Period, open_warehouse, run_sql_file
 
-# Order matters: each file reads only what the ones before it built.
-LAYERS: tuple[tuple[str, str], ...] = (
-    ("staging", "transactions"),
-    ("staging", "customers"),
-    ("features", "salary_streams"),
-    ("features", "customer_salary"),
-    ("features", "customer"),
-)
+@dataclass(frozen=True)
+class FeatureBuild:
+    """Row counts of every table the layers built (the grain is a rule of the feature suite)."""
+
+    row_counts: dict[str, int]
 
 
-def window_params(period: str, settings: Settings) -> dict:
-    window = Period.parse(period).window(settings.features.window_months)
-    return {
-        "window_start": window[0].start,
-        "window_end": window[-1].end,
-        "large_debit_threshold": settings.features.large_debit_threshold,
-    }
-
-
-def check_window_loaded(con: duckdb.DuckDBPyConnection, period: str, settings: Settings) -> None:
+def check_window_loaded(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> None:
     """Refuse to build features over a window with a month that has no accepted extract."""
-    window = [str(p) for p in Period.parse(period).window(settings.features.window_months)]
-    loaded = accepted_periods(con)
-    missing = [p for p in window if p not in loaded]
+    accepted = loads.accepted_periods(con)
+    missing = [str(p) for p in ctx.window if p not in accepted]
     if missing:
         raise LedgerbandError(
-            f"feature window {window[0]}..{window[-1]} has no accepted extract for {', '.join(missing)}; "
+            f"feature window {ctx.window} has no accepted extract for {', '.join(missing)}; "
             "put those extracts and manifests in the landing folder and run again "
             "(or set features.window_months lower)"
         )
-    if not con.execute(
-        "select count(*) from ops.loads where dataset = 'customers' and status = 'accepted'"
-    ).fetchall()[0][0]:
+    if not loads.has_accepted_customers(con):
         raise LedgerbandError("no customer reference file has been loaded")
 
 
-def build_features(con: duckdb.DuckDBPyConnection, period: str, settings: Settings) -> dict:
-    """Rebuild staging and features for the window ending at `period`; returns row counts per table."""
-    check_window_loaded(con, period, settings)
-    params = window_params(period, settings)
-    counts = {}
-    for layer, name in LAYERS:
-        run_sql_file(con, layer, name, params)
-        counts[f"{layer}.{name}"] = con.execute(f"select count(*)::bigint from {layer}.{name}").fetchall()[0][
-            0
-        ]
-    return counts  # the grain (one row per customer) is a rule of expectations/customer_features.json
+def build_features(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> FeatureBuild:
+    """Rebuild every layer table for the window ending at the run's period."""
+    check_window_loaded(con, ctx)
+    return FeatureBuild(build_layers(con, ctx.window_params()))
 
 
 @task(name="build-features", cache_policy=NO_CACHE)
-def build_features_task(warehouse: Path, period: str, settings: Settings) -> dict:
-    with open_warehouse(warehouse) as con:
-        return build_features(con, period, settings)
+def build_features_task(ctx: RunContext) -> FeatureBuild:
+    with open_warehouse(ctx.warehouse) as con:
+        return build_features(con, ctx)

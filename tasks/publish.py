@@ -11,18 +11,19 @@ from __future__ import annotations
 
 import json
 import os
+from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
 
 import duckdb
+from ledgerband.tasks.bands import write_band_table
+from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.retry import IO_RETRIES
+from ledgerband.tasks.train import TrainSummary
+from ledgerband.tasks.warehouse import open_warehouse, sql_model, transaction
 from prefect import task
 from prefect.cache_policies import NO_CACHE
-
-from tasks.bands import write_band_table
-from tasks.errors import LedgerbandError
-from tasks.retry import IO_RETRIES
-from tasks.settings import Settings
-from tasks.warehouse import bound, open_warehouse, read_query, transaction
 
 READER_TABLES = {
     "income_bands": "select * from published.income_bands",
@@ -33,14 +34,22 @@ READER_TABLES = {
 }
 
 
-def _insert_from_file(con: duckdb.DuckDBPyConnection, table: str, name: str, params: dict) -> None:
-    con.execute(f"insert into {table}\n{read_query('published', name)}", bound("published", name, params))
+@dataclass(frozen=True)
+class PublishResult:
+    run_id: str
+    customers: int
+    published_at: str
 
 
-def publish_snapshot(
-    con: duckdb.DuckDBPyConnection, run_id: str, period: str, model_version: str, settings: Settings
-) -> dict:
+def insert_from_file(con: duckdb.DuckDBPyConnection, table: str, name: str, params: dict) -> None:
+    """Append the rows of `warehouse/sql/published/<name>.sql` to `table` (parameters bound)."""
+    model = sql_model("published", name)
+    con.execute(f"insert into {table}\n{model.query}", model.params(params))
+
+
+def publish_snapshot(con: duckdb.DuckDBPyConnection, ctx: RunContext, model_version: str) -> PublishResult:
     """Write and switch to a new snapshot. Returns its row counts."""
+    settings, run_id, period = ctx.settings, ctx.run_id, str(ctx.period)
     published_at = datetime.now()
     params = {
         "run_id": run_id,
@@ -52,8 +61,8 @@ def publish_snapshot(
         write_band_table(con, settings.bands.edges, settings.bands.currency)
         for table in ("income_bands_history", "band_summary_history", "snapshots"):
             con.execute(f"delete from published.{table} where run_id = ?", [run_id])
-        _insert_from_file(con, "published.income_bands_history", "income_bands", params)
-        _insert_from_file(con, "published.band_summary_history", "band_summary", params)
+        insert_from_file(con, "published.income_bands_history", "income_bands", params)
+        insert_from_file(con, "published.band_summary_history", "band_summary", params)
         band_rows, distinct_customers = con.execute(
             "select count(*)::bigint, count(distinct customer_id)::bigint "
             "from published.income_bands_history where run_id = ?",
@@ -74,11 +83,7 @@ def publish_snapshot(
             "insert into published.snapshots values (?, ?, ?, ?, ?, true, ?)",
             [run_id, period, model_version, json.dumps(list(settings.bands.edges)), band_rows, published_at],
         )
-    return {
-        "run_id": run_id,
-        "customers": int(band_rows),
-        "published_at": published_at.isoformat(timespec="seconds"),
-    }
+    return PublishResult(run_id, int(band_rows), published_at.isoformat(timespec="seconds"))
 
 
 def export_reader_copy(con: duckdb.DuckDBPyConnection, target: Path) -> Path:
@@ -101,14 +106,14 @@ def _sql_path(path: Path) -> str:
 
 
 @task(name="publish-snapshot", cache_policy=NO_CACHE, **IO_RETRIES)
-def publish_task(warehouse: Path, run_id: str, period: str, model_version: str, settings: Settings) -> dict:
-    with open_warehouse(warehouse) as con:
-        return publish_snapshot(con, run_id, period, model_version, settings)
+def publish_task(ctx: RunContext, train: TrainSummary) -> PublishResult:
+    with open_warehouse(ctx.warehouse) as con:
+        return publish_snapshot(con, ctx, train.model_version)
 
 
 @task(name="refresh-reader-copy", cache_policy=NO_CACHE, **IO_RETRIES)
-def refresh_reader_copy_task(warehouse: Path, settings: Settings) -> str:
+def refresh_reader_copy_task(ctx: RunContext) -> Path:
     """After every run that reached a decision: readers see the current snapshot and every decision,
     including a month that was withheld or stopped."""
-    with open_warehouse(warehouse) as con:
-        return str(export_reader_copy(con, settings.published_path))
+    with open_warehouse(ctx.warehouse) as con:
+        return export_reader_copy(con, ctx.settings.published_path)

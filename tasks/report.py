@@ -7,15 +7,12 @@ from datetime import datetime
 from pathlib import Path
 
 import duckdb
-from jinja2 import Environment, FileSystemLoader, select_autoescape
+from jinja2 import Environment, PackageLoader, select_autoescape
+from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.retry import IO_RETRIES
+from ledgerband.tasks.warehouse import open_warehouse
 from prefect import task
 from prefect.cache_policies import NO_CACHE
-
-from tasks.retry import IO_RETRIES
-from tasks.settings import Settings
-from tasks.warehouse import Period, open_warehouse
-
-TEMPLATES = Path(__file__).resolve().parent / "templates"
 
 CAUTIONS = (
     "Internal reporting only. These bands estimate income from account behaviour; they are not verified "
@@ -38,9 +35,10 @@ def _rows(con: duckdb.DuckDBPyConnection, query: str, params: list) -> list[dict
     return [dict(zip(names, r, strict=True)) for r in cur.fetchall()]
 
 
-def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: Settings) -> dict:
+def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
     """Everything the report shows, read back from the warehouse (the report computes nothing new)."""
-    window = [str(p) for p in Period.parse(period).window(settings.features.window_months)]
+    settings, run_id, period = ctx.settings, ctx.run_id, str(ctx.period)
+    window = ctx.window.labels
     run = _rows(con, "select * from ops.runs where run_id = ?", [run_id])
     decisions = _rows(con, "select * from published.decisions where run_id = ? order by decided_at", [run_id])
     for d in decisions:
@@ -123,22 +121,24 @@ def gather(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: S
 
 
 def render(context: dict) -> str:
-    env = Environment(loader=FileSystemLoader(TEMPLATES), autoescape=select_autoescape(["html", "j2"]))
+    env = Environment(
+        loader=PackageLoader("ledgerband.tasks", "templates"), autoescape=select_autoescape(["html", "j2"])
+    )
     env.filters["num"] = lambda x, d=0: "–" if x is None else f"{x:,.{d}f}"
     env.filters["pct"] = lambda x: "–" if x is None else f"{100 * x:.1f}%"
     return env.get_template("run_report.html.j2").render(**context)
 
 
-def write_report(con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: Settings) -> Path:
-    out = settings.reports_dir / period / "index.html"
+def write_report(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> Path:
+    out = ctx.settings.reports_dir / str(ctx.period) / "index.html"
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = out.with_name("index.html.incoming")
-    tmp.write_text(render(gather(con, run_id, period, settings)), encoding="utf-8")
+    tmp.write_text(render(gather(con, ctx)), encoding="utf-8")
     tmp.replace(out)
     return out
 
 
 @task(name="write-report", cache_policy=NO_CACHE, **IO_RETRIES)
-def report_task(warehouse: Path, run_id: str, period: str, settings: Settings) -> str:
-    with open_warehouse(warehouse) as con:
-        return str(write_report(con, run_id, period, settings))
+def report_task(ctx: RunContext) -> Path:
+    with open_warehouse(ctx.warehouse) as con:
+        return write_report(con, ctx)

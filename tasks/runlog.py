@@ -1,32 +1,38 @@
-"""ops.runs: one row per monthly run with each stage's status, timing and the gate figures.
+"""ops.runs: one row per monthly run with each stage's status, timing and the gate decisions.
 
 The row is written when the run starts ('running') and rewritten after every stage, so a run that
-dies half-way still shows how far it got.
+dies half-way still shows how far it got. The gate figures are read back from published.decisions (what
+`enforce` recorded), so there is one record of each decision.
 """
 
 from __future__ import annotations
 
 import json
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import datetime
-from pathlib import Path
+from typing import Any, TypeVar
 
-from tasks.errors import GateStopped
-from tasks.warehouse import apply_schema, open_warehouse
+from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.errors import GateStopped
+from ledgerband.tasks.gates import decisions_of_run
+from ledgerband.tasks.warehouse import apply_schema, open_warehouse
+
+T = TypeVar("T")
+
+RUNNING = "running"
+PUBLISHED = "published"
+FAILED = "failed"
+# and GateStopped.run_status: 'withheld' (accuracy) or 'stopped' (quality)
 
 
 @dataclass
 class RunLog:
-    warehouse: Path
-    run_id: str
-    period: str
-    started_at: datetime = field(default_factory=datetime.now)
+    ctx: RunContext
     stages: list[dict] = field(default_factory=list)
-    gate_figures: dict = field(default_factory=dict)
-    status: str = "running"
+    status: str = RUNNING
     error: str | None = None
 
     def __post_init__(self) -> None:
@@ -54,25 +60,33 @@ class RunLog:
             record["seconds"] = round(time.perf_counter() - t0, 3)
             self._write()
 
+    def run(self, name: str, fn: Callable[..., T], *args: Any, detail: Callable[[T], Any] | None = None) -> T:
+        """One stage as one line: call `fn(*args)` inside `stage(name)`; `detail` summarises its result."""
+        with self.stage(name) as record:
+            result = fn(*args)
+            record["detail"] = detail(result) if detail else None
+            return result
+
     def finish(self, status: str, error: str | None = None) -> None:
         self.status, self.error = status, error
         self._write(finished=True)
 
     def _write(self, create_schema: bool = False, finished: bool = False) -> None:
-        with open_warehouse(self.warehouse) as con:
+        with open_warehouse(self.ctx.warehouse) as con:
             if create_schema:
                 apply_schema(con)
-            con.execute("delete from ops.runs where run_id = ?", [self.run_id])
+            gates = decisions_of_run(con, self.ctx.run_id)
+            con.execute("delete from ops.runs where run_id = ?", [self.ctx.run_id])
             con.execute(
                 "insert into ops.runs values (?, ?, ?, ?, ?, ?, ?, ?)",
                 [
-                    self.run_id,
-                    self.period,
-                    self.started_at,
+                    self.ctx.run_id,
+                    str(self.ctx.period),
+                    self.ctx.started_at,
                     datetime.now() if finished else None,
                     self.status,
                     self.error,
                     json.dumps(self.stages, default=str),
-                    json.dumps(self.gate_figures, default=str),
+                    json.dumps(gates, default=str),
                 ],
             )

@@ -1,8 +1,11 @@
 """One settings object for the whole pipeline.
 
 Read, in rising precedence, from the defaults below, `ledgerband.toml` (path in `LEDGERBAND_CONFIG`,
-else `./ledgerband.toml` beside the project), and `LEDGERBAND_*` environment variables (nested keys
+else `ledgerband.toml` in the working directory), and `LEDGERBAND_*` environment variables (nested keys
 with `__`, e.g. `LEDGERBAND_ACCURACY__MIN_SKILL_OVER_BASELINE=0.3`). Unknown keys fail loudly.
+
+The defaults live here and only here; the repository's `ledgerband.toml` is the commented example, and
+a test proves it says the same as these defaults.
 """
 
 from __future__ import annotations
@@ -19,15 +22,15 @@ from pydantic_settings import (
     TomlConfigSettingsSource,
 )
 
-PROJECT_ROOT = Path(__file__).resolve().parents[1]
+
+def config_file() -> Path:
+    """The settings file: `LEDGERBAND_CONFIG`, else `ledgerband.toml` in the working directory."""
+    return Path(os.environ.get("LEDGERBAND_CONFIG", "ledgerband.toml"))
 
 
-def _config_file() -> Path:
-    return Path(os.environ.get("LEDGERBAND_CONFIG", PROJECT_ROOT / "ledgerband.toml"))
-
-
-def _default_home() -> Path:
-    return Path(os.environ.get("LEDGERBAND_HOME", PROJECT_ROOT / ".ledgerband"))
+def default_home() -> Path:
+    """The state folder: `LEDGERBAND_HOME`, else `.ledgerband/` in the working directory."""
+    return Path(os.environ.get("LEDGERBAND_HOME", ".ledgerband")).absolute()
 
 
 class _Section(BaseModel):
@@ -117,7 +120,7 @@ class Settings(BaseSettings):
         frozen=True,
     )
 
-    home: Path = Field(default_factory=_default_home)
+    home: Path = Field(default_factory=default_home)
     landing_dir: Path | None = None
     """Where extracts arrive (`<landing_dir>/<period>/`, `<landing_dir>/customers.csv`); default `<home>/landing`."""
     owners: tuple[str, ...] = ("data-engineering@corrandale.example",)
@@ -141,7 +144,7 @@ class Settings(BaseSettings):
         return (
             init_settings,
             _FilteredEnv(settings_cls),
-            TomlConfigSettingsSource(settings_cls, _config_file()),
+            TomlConfigSettingsSource(settings_cls, config_file()),
         )
 
     # Paths derived from home: one place that says where every piece of state lives.

@@ -18,6 +18,10 @@ from pathlib import Path
 import duckdb
 import numpy as np
 import pandas as pd
+from ledgerband.tasks.bands import band_agreement, income_to_publish
+from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.warehouse import open_warehouse
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 from sklearn.compose import ColumnTransformer
@@ -28,10 +32,6 @@ from sklearn.model_selection import KFold, RepeatedKFold, cross_val_predict, cro
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, StandardScaler
 from sklearn.tree import DecisionTreeRegressor
-
-from tasks.bands import band_agreement
-from tasks.settings import PROJECT_ROOT, Settings
-from tasks.warehouse import open_warehouse
 
 BASELINE = "baseline_mean"
 SCORING = {"rmse": "neg_root_mean_squared_error", "mae": "neg_mean_absolute_error"}
@@ -112,14 +112,24 @@ def compare_candidates(X: pd.DataFrame, y: np.ndarray, settings: Settings) -> li
     return scores
 
 
-def _git_sha() -> str:
+def code_version() -> dict[str, str]:
+    """The installed package version and, when it runs from a git checkout, the commit."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        package = version("ledgerband")
+    except PackageNotFoundError:  # pragma: no cover - always installed, even editable
+        package = "unknown"
+    sha = "unknown"
     try:
         out = subprocess.run(
-            ["git", "rev-parse", "HEAD"], cwd=PROJECT_ROOT, capture_output=True, text=True, timeout=5
+            ["git", "rev-parse", "HEAD"], cwd=Path(__file__).parent, capture_output=True, text=True, timeout=5
         )
-        return out.stdout.strip() or "unknown"
+        if out.returncode == 0:
+            sha = out.stdout.strip()
     except (OSError, subprocess.SubprocessError):
-        return "unknown"
+        pass
+    return {"package_version": package, "git_sha": sha}
 
 
 @dataclass
@@ -144,10 +154,9 @@ class TrainSummary:
         return asdict(self)
 
 
-def train_and_predict(
-    con: duckdb.DuckDBPyConnection, run_id: str, period: str, settings: Settings, models_dir: Path
-) -> TrainSummary:
+def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainSummary:
     """Compare candidates, refit the champion, store scores and every customer's estimate in ml.*."""
+    settings, run_id, period = ctx.settings, ctx.run_id, str(ctx.period)
     t = settings.train
     frame = model_frame(con)
     features = list(t.numeric_features) + list(t.categorical_features)
@@ -213,13 +222,16 @@ def train_and_predict(
             "annual_salary": frame["annual_salary"].astype("float64"),
         }
     )
+    predictions = predictions.join(
+        income_to_publish(predictions["annual_salary"], predictions["estimate"], settings.bands.edges)
+    )
     con.register("prediction_rows", predictions)
-    con.execute("insert into ml.predictions select * from prediction_rows")
+    con.execute("insert into ml.predictions by name select * from prediction_rows")
     con.unregister("prediction_rows")
 
     model_path = _save_model(
         pipe,
-        models_dir / period / run_id,
+        settings.models_dir / period / run_id,
         {
             "model_version": model_version,
             "run_id": run_id,
@@ -232,7 +244,7 @@ def train_and_predict(
             "cv": {"folds": t.cv_folds, "repeats": t.cv_repeats, "random_state": t.random_state},
             "metrics": {s.name: {"rmse_mean": s.rmse_mean, "mae_mean": s.mae_mean} for s in scores},
             "band_metrics_out_of_fold": bands,
-            "git_sha": _git_sha(),
+            **code_version(),
             "created_at": now.isoformat(timespec="seconds"),
         },
     )
@@ -273,7 +285,7 @@ def _save_model(pipe: Pipeline, folder: Path, card: dict) -> Path:
 
 
 @task(name="train-candidates", cache_policy=NO_CACHE)
-def train_task(warehouse: Path, run_id: str, period: str, settings: Settings) -> dict:
+def train_task(ctx: RunContext) -> TrainSummary:
     """Fit and compare the candidates (never retried: training is deterministic)."""
-    with open_warehouse(warehouse) as con:
-        return train_and_predict(con, run_id, period, settings, settings.models_dir).to_dict()
+    with open_warehouse(ctx.warehouse) as con:
+        return train_and_predict(con, ctx)

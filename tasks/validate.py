@@ -18,20 +18,23 @@ from collections import defaultdict
 from dataclasses import asdict, dataclass, field
 from datetime import datetime
 from functools import lru_cache
+from importlib import resources
 from pathlib import Path
 from typing import Any
 
 import duckdb
 import pandas as pd
+from ledgerband.tasks import loads
+from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.errors import LedgerbandError, ValidationEngineError
+from ledgerband.tasks.gates import QUALITY, Decision, enforce
+from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
+from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.warehouse import open_warehouse, transaction
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
-from tasks.contract import LEDGER_COLUMNS
-from tasks.errors import GateStopped, LedgerbandError, ValidationEngineError
-from tasks.settings import PROJECT_ROOT, Settings
-from tasks.warehouse import Period, open_warehouse, transaction
-
-EXPECTATIONS_DIR = PROJECT_ROOT / "expectations"
+SUITES_PACKAGE = "ledgerband.expectations"
 WHOLE_COLUMN_TYPES = frozenset({"expect_column_values_to_be_unique"})
 ROW_TYPE_PREFIX = "expect_column_values_to_"
 RESULT_FORMAT = {"result_format": "COMPLETE", "unexpected_index_column_names": ["source_line"]}
@@ -55,11 +58,11 @@ class SuiteParts:
         return [e["meta"]["rule"] for e in self.table + self.whole_column + self.row]
 
 
-def read_suite(name: str, directory: Path = EXPECTATIONS_DIR) -> SuiteParts:
-    """Read `expectations/<name>.json` and sort its rules by how they are evaluated."""
-    path = directory / f"{name}.json"
+def read_suite(name: str, directory: Path | None = None) -> SuiteParts:
+    """Read `expectations/<name>.json` (shipped in the package) and sort its rules by how they are evaluated."""
+    path = (directory / f"{name}.json") if directory else resources.files(SUITES_PACKAGE) / f"{name}.json"
     try:
-        data = json.loads(path.read_text())
+        data = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, json.JSONDecodeError) as exc:
         raise LedgerbandError(f"expectation suite {path}: cannot be read ({exc})") from exc
     parts: dict[str, list[dict]] = {"table": [], "whole_column": [], "row": []}
@@ -140,19 +143,23 @@ def _run(
     return list(result.results)
 
 
-def check_table_columns(suite_name: str, columns: list[str], source: str) -> None:
-    """Run the suite's table-level rules on a file's header. Raises GateStopped naming the file and rule."""
+def extract_contract_decision(columns: list[str], source: Path, suite_name: str = "ledger_lines") -> Decision:
+    """The suite's table-level rules on a file's header: the extract contract check of the quality gate."""
     parts = read_suite(suite_name)
     frame = pd.DataFrame({c: pd.Series([], dtype="str") for c in columns})
+    broken = []
     for r in _run(f"{suite_name}.table", parts.table, frame):
         if not r.success:
             details = (r.result or {}).get("details", {}).get("mismatched") or {
                 "observed": r.result.get("observed_value")
             }
-            raise GateStopped(
-                "quality",
-                f"{source}: line 1 (header) breaks rule {r.expectation_config.meta['rule']}: {details}",
-            )
+            broken.append(f"line 1 (header) breaks rule {r.expectation_config.meta['rule']}: {details}")
+    figures = {"columns": list(columns), "broken_rules": broken}
+    thresholds = {"rules": [e["meta"]["rule"] for e in parts.table]}
+    reason = f"{source}: " + ("; ".join(broken) if broken else "header matches the contract")
+    return Decision(
+        QUALITY, "extract_contract", not broken, reason, figures, thresholds, subject=Path(source).name
+    )
 
 
 @dataclass
@@ -172,9 +179,9 @@ class ValidationSummary:
         return {**asdict(self), "quarantined_share": self.quarantined_share}
 
 
-# The load's records with helper columns the suite's rules read: parsed values, and whether a txn_id
-# came in an earlier file that was accepted, or was validated earlier in the same run, and was not
-# quarantined there.
+# The load's records with helper columns the suite's rules read: the parsed values (from the one parse
+# of the text fields, staging.ledger_lines_parsed), and whether a txn_id came in an earlier file that was
+# accepted, or was validated earlier in the same run, and was not quarantined there.
 _PARSED_QUERY = """
 with this_load as (
     select loaded_at, run_id from ops.loads where load_id = $load_id
@@ -197,10 +204,10 @@ previous as (
 select
     cur.source_line,
     {columns},
-    try_cast(cur.amount as decimal(18, 2))::double as amount_value,
-    try_strptime(cur.booking_date, '%Y-%m-%d')::date as booking_date_value,
+    cur.amount_value::double as amount_value,
+    cur.booking_date_value,
     previous.txn_id is not null as txn_id_loaded_before
-from raw.ledger_lines as cur
+from staging.ledger_lines_parsed as cur
 left join previous on previous.txn_id = cur.txn_id
 where cur.load_id = $load_id
 order by cur.source_line
@@ -211,14 +218,10 @@ def validate_load(
     con: duckdb.DuckDBPyConnection, load_id: str, settings: Settings, suite_name: str = "ledger_lines"
 ) -> ValidationSummary:
     """Run the ledger suite on one load and quarantine the records that break a row-level rule."""
-    row = con.execute(
-        "select source_file, period, rows_in_file, rows_quarantined from ops.loads where load_id = ?",
-        [load_id],
-    ).fetchall()
-    if not row:
+    facts = loads.load_facts(con, load_id)
+    if facts is None:
         raise LedgerbandError(f"no load {load_id} in ops.loads")
-    source_file, period_text, rows_in_file, malformed = row[0]
-    period = Period.parse(period_text)
+    source_file, period, rows_in_file, malformed = facts
     parts = read_suite(suite_name)
     params = {"period_start": period.start, "period_end": period.end}
     failures: dict[int, dict[str, str]] = defaultdict(dict)  # line -> rule -> offending value
@@ -295,9 +298,7 @@ def validate_load(
         total_quarantined = con.execute(
             "select count(*)::bigint from quarantine.ledger_lines where load_id = ?", [load_id]
         ).fetchall()[0][0]
-        con.execute(
-            "update ops.loads set rows_quarantined = ? where load_id = ?", [total_quarantined, load_id]
-        )
+        loads.set_quarantined(con, load_id, total_quarantined)
 
     counts: dict[str, int] = defaultdict(int)
     for rules in failures.values():
@@ -319,10 +320,11 @@ def validate_load(
     )
 
 
-def validate_features(con: duckdb.DuckDBPyConnection, suite_name: str = "customer_features") -> list[str]:
+def validate_features(con: duckdb.DuckDBPyConnection, suite_name: str = "customer_features") -> Decision:
     """Run the feature suite on features.customer (one narrow row per customer: validated whole).
 
-    Returns one problem line per broken rule, naming the rule, how many customers and a few of them.
+    Any broken rule fails the check: a broken feature table is a bug upstream, not a bad record to set
+    aside. The reason names each rule, how many customers and a few of them.
     """
     parts = read_suite(suite_name)
     frame = con.sql("select * from features.customer").df()
@@ -337,18 +339,23 @@ def validate_features(con: duckdb.DuckDBPyConnection, suite_name: str = "custome
                 f"features.customer breaks rule {r.expectation_config.meta['rule']} in {len(ids)} row(s), "
                 f"e.g. customer {', '.join(examples) or 'the table as a whole'}"
             )
-    return problems
+    figures = {"customers": len(frame), "broken_rules": problems}
+    thresholds = {"rules": parts.rule_names}
+    reason = (
+        "; ".join(problems) if problems else f"features.customer passes all {len(parts.rule_names)} rules"
+    )
+    return Decision(QUALITY, "feature_suite", not problems, reason, figures, thresholds)
 
 
 @task(name="validate-extract", cache_policy=NO_CACHE)
-def validate_load_task(warehouse: Path, load_id: str, settings: Settings) -> dict:
+def validate_load_task(ctx: RunContext, load: loads.LoadResult) -> ValidationSummary:
     """Run the ledger suite on one load (never retried: validation is deterministic)."""
-    with open_warehouse(warehouse) as con:
-        return validate_load(con, load_id, settings).to_dict()
+    with open_warehouse(ctx.warehouse) as con:
+        return validate_load(con, load.load_id, ctx.settings)
 
 
 @task(name="validate-features", cache_policy=NO_CACHE)
-def validate_features_task(warehouse: Path) -> list[str]:
-    """Feature suite; any broken rule is returned (the flow stops the run on it)."""
-    with open_warehouse(warehouse) as con:
-        return validate_features(con)
+def validate_features_task(ctx: RunContext) -> Decision:
+    """Feature suite; a broken rule stops the run (recorded as a quality-gate decision)."""
+    with open_warehouse(ctx.warehouse) as con:
+        return enforce(con, ctx, validate_features(con))

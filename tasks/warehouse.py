@@ -1,57 +1,36 @@
-"""The DuckDB warehouse: connections, the schema, layered SQL files, and period arithmetic."""
+"""The DuckDB warehouse: connections, transactions, the schema and the layered SQL files.
+
+SQL files ship inside the package (`ledgerband.warehouse`) and are read with importlib.resources, so an
+installed wheel finds them without a checkout. Each layer file opens with a header that declares what it
+builds from:
+
+    -- Reads: staging.transactions, ref.pay_frequencies.
+    -- Materialized: view            (optional; default: table)
+
+The build order of the layers is derived from those declarations, never written down by hand.
+"""
 
 from __future__ import annotations
 
-import calendar
+import graphlib
 import re
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass
-from datetime import date
+from functools import cache
+from importlib import resources
 from pathlib import Path
 from typing import Any
 
 import duckdb
+from ledgerband.tasks.errors import LedgerbandError
 
-from tasks.errors import LedgerbandError
-
-WAREHOUSE_DIR = Path(__file__).resolve().parents[1] / "warehouse"
-SQL_DIR = WAREHOUSE_DIR / "sql"
-_PERIOD = re.compile(r"^(\d{4})-(0[1-9]|1[0-2])$")
-
-
-@dataclass(frozen=True)
-class Period:
-    """A calendar month, written YYYY-MM."""
-
-    year: int
-    month: int
-
-    @classmethod
-    def parse(cls, text: str) -> Period:
-        m = _PERIOD.match(text or "")
-        if not m:
-            raise LedgerbandError(f"period {text!r} is not a month written YYYY-MM (e.g. 2026-10)")
-        return cls(int(m.group(1)), int(m.group(2)))
-
-    def __str__(self) -> str:
-        return f"{self.year:04d}-{self.month:02d}"
-
-    @property
-    def start(self) -> date:
-        return date(self.year, self.month, 1)
-
-    @property
-    def end(self) -> date:
-        return date(self.year, self.month, calendar.monthrange(self.year, self.month)[1])
-
-    def shift(self, months: int) -> Period:
-        index = self.year * 12 + (self.month - 1) + months
-        return Period(index // 12, index % 12 + 1)
-
-    def window(self, months: int) -> list[Period]:
-        """The `months` periods ending with this one, oldest first."""
-        return [self.shift(-k) for k in range(months - 1, -1, -1)]
+PACKAGE = "ledgerband.warehouse"
+# Layers built from SQL files by the feature stage, lowest first (published files are run by publish).
+BUILT_LAYERS = ("staging", "intermediate", "features")
+_READS = re.compile(r"^--\s*Reads:\s*(?P<names>[^\n]*)$", re.MULTILINE)
+_MATERIALIZED = re.compile(r"^--\s*Materialized:\s*(?P<kind>table|view)\b", re.MULTILINE)
+_TABLE_NAME = re.compile(r"\b([a-z_]+)\.([a-z_]+)\b")
 
 
 def connect(path: Path | str, read_only: bool = False) -> duckdb.DuckDBPyConnection:
@@ -92,40 +71,103 @@ def transaction(con: duckdb.DuckDBPyConnection) -> Iterator[duckdb.DuckDBPyConne
     con.execute("commit")
 
 
+def scalar(con: duckdb.DuckDBPyConnection, query: str, params: Any = None) -> Any:
+    rows = con.execute(query, params).fetchall()
+    return rows[0][0] if rows else None
+
+
+@dataclass(frozen=True)
+class SqlModel:
+    """One layer file: `warehouse/sql/<layer>/<name>.sql` builds `<layer>.<name>`."""
+
+    layer: str
+    name: str
+    query: str
+    reads: tuple[str, ...]
+    materialized: str  # 'table' | 'view'
+
+    @property
+    def relation(self) -> str:
+        return f"{self.layer}.{self.name}"
+
+    def params(self, available: Mapping[str, Any] | None) -> dict[str, Any]:
+        """The parameters the file actually uses (DuckDB refuses unused named parameters)."""
+        return {k: v for k, v in (available or {}).items() if f"${k}" in self.query}
+
+    def build(self, con: duckdb.DuckDBPyConnection, params: Mapping[str, Any] | None = None) -> None:
+        """Create or replace the table or view from the file's query (parameters bound, never formatted)."""
+        if self.materialized == "view":
+            if self.params(params) or "$" in self.query:
+                raise LedgerbandError(f"{self.relation}: a view cannot take parameters")
+            con.execute(f"create or replace view {self.relation} as\n{self.query}")
+        else:
+            con.execute(f"create or replace table {self.relation} as\n{self.query}", self.params(params))
+
+
+def _resource(*parts: str):
+    node = resources.files(PACKAGE)
+    for part in parts:
+        node = node / part
+    return node
+
+
+@cache
+def sql_model(layer: str, name: str) -> SqlModel:
+    node = _resource("sql", layer, f"{name}.sql")
+    if not node.is_file():
+        raise LedgerbandError(f"no SQL file for {layer}.{name} in the package (sql/{layer}/{name}.sql)")
+    text = node.read_text(encoding="utf-8")
+    reads_line = _READS.search(text)
+    if not reads_line:
+        raise LedgerbandError(f"sql/{layer}/{name}.sql: the header must declare '-- Reads: <tables>.'")
+    reads = tuple(f"{a}.{b}" for a, b in _TABLE_NAME.findall(reads_line.group("names")))
+    kind = _MATERIALIZED.search(text)
+    return SqlModel(
+        layer=layer,
+        name=name,
+        query=text.strip().rstrip(";"),
+        reads=reads,
+        materialized=kind.group("kind") if kind else "table",
+    )
+
+
+def layer_models(layers: tuple[str, ...] = BUILT_LAYERS) -> list[SqlModel]:
+    """Every SQL file of `layers`, in an order where each comes after everything it reads."""
+    models = {}
+    for layer in layers:
+        folder = _resource("sql", layer)
+        for node in sorted(folder.iterdir(), key=lambda n: n.name):
+            if node.name.endswith(".sql"):
+                model = sql_model(layer, node.name[: -len(".sql")])
+                models[model.relation] = model
+    graph = {rel: {r for r in m.reads if r in models} for rel, m in models.items()}
+    try:
+        order = list(graphlib.TopologicalSorter(graph).static_order())
+    except graphlib.CycleError as exc:
+        raise LedgerbandError(f"SQL layer files read each other in a cycle: {exc.args[1]}") from exc
+    return [models[rel] for rel in order]
+
+
 def apply_schema(con: duckdb.DuckDBPyConnection) -> None:
-    con.execute((WAREHOUSE_DIR / "schema.sql").read_text())
+    """Create every schema and table (idempotent), then the views the load stages read."""
+    con.execute(_resource("schema.sql").read_text(encoding="utf-8"))
+    for model in layer_models():
+        if model.materialized == "view":
+            model.build(con)
 
 
-def sql_file(layer: str, name: str) -> Path:
-    path = SQL_DIR / layer / f"{name}.sql"
-    if not path.is_file():
-        raise FileNotFoundError(f"no SQL file for {layer}.{name} at {path}")
-    return path
+def build_layers(con: duckdb.DuckDBPyConnection, params: Mapping[str, Any]) -> dict[str, int]:
+    """Rebuild every table of the built layers in dependency order; returns row counts per table."""
+    counts = {}
+    for model in layer_models():
+        model.build(con, params)
+        if model.materialized == "table":
+            counts[model.relation] = int(scalar(con, f"select count(*)::bigint from {model.relation}"))
+    return counts
 
 
 def run_sql_file(
     con: duckdb.DuckDBPyConnection, layer: str, name: str, params: Mapping[str, Any] | None = None
 ) -> None:
-    """Build `<layer>.<name>` from `warehouse/sql/<layer>/<name>.sql` (parameters bound, not formatted).
-
-    The file holds a query (`select * from final`); this wraps it in `create or replace table`.
-    """
-    con.execute(
-        f"create or replace table {layer}.{name} as\n{read_query(layer, name)}", bound(layer, name, params)
-    )
-
-
-def read_query(layer: str, name: str) -> str:
-    """The query in `warehouse/sql/<layer>/<name>.sql`, without a trailing semicolon."""
-    return sql_file(layer, name).read_text().strip().rstrip(";")
-
-
-def bound(layer: str, name: str, params: Mapping[str, Any] | None) -> dict[str, Any]:
-    """The parameters the file actually uses (DuckDB refuses unused named parameters)."""
-    query = read_query(layer, name)
-    return {k: v for k, v in (params or {}).items() if f"${k}" in query}
-
-
-def scalar(con: duckdb.DuckDBPyConnection, query: str, params: Any = None) -> Any:
-    rows = con.execute(query, params).fetchall()
-    return rows[0][0] if rows else None
+    """Build one `<layer>.<name>` from its file (tests build single layers this way)."""
+    sql_model(layer, name).build(con, params)

@@ -10,18 +10,20 @@ _SESSION_HOME = Path(tempfile.mkdtemp(prefix="ledgerband-test-"))
 os.environ["LEDGERBAND_HOME"] = str(_SESSION_HOME)
 os.environ["PREFECT_HOME"] = str(_SESSION_HOME / "prefect")
 os.environ.setdefault("PREFECT_LOGGING_LEVEL", "WARNING")
-# Tests read the defaults in code, not an operator's ledgerband.toml or environment.
-os.environ["LEDGERBAND_CONFIG"] = str(_SESSION_HOME / "no-such-ledgerband.toml")
+# Tests read the defaults in code (an empty settings file), not an operator's ledgerband.toml or environment.
+(_SESSION_HOME / "ledgerband.toml").write_text("# empty: the defaults in code apply\n")
+os.environ["LEDGERBAND_CONFIG"] = str(_SESSION_HOME / "ledgerband.toml")
 for _name in list(os.environ):
     if _name.startswith("LEDGERBAND_") and _name not in ("LEDGERBAND_HOME", "LEDGERBAND_CONFIG"):
         del os.environ[_name]
 
 import duckdb  # noqa: E402
 import pytest  # noqa: E402
+from ledgerband.tasks.runtime import configure_process_env  # noqa: E402
+from ledgerband.tasks.settings import Settings, get_settings  # noqa: E402
+from ledgerband.tasks.warehouse import apply_schema  # noqa: E402
 
-import tasks  # noqa: E402,F401
-from tasks.settings import Settings, get_settings  # noqa: E402
-from tasks.warehouse import apply_schema  # noqa: E402
+configure_process_env()  # the test session is an entry point, like the CLI
 
 FIXTURES = Path(__file__).parent / "fixtures"
 

@@ -1,9 +1,11 @@
 -- ledgerband warehouse schema. Idempotent: applied at the start of every run.
--- Layers are schemas: raw -> staging -> features -> published, plus quarantine, ml, ops and ref.
--- Tables built wholesale by a layer's SQL file (staging.*, features.*) are created by that file.
+-- Layers are schemas: raw -> staging -> intermediate -> features -> published, plus quarantine, ml, ops
+-- and ref. Tables and views built wholesale by a layer's SQL file (staging.*, intermediate.*, features.*)
+-- are created by that file.
 
 create schema if not exists raw;
 create schema if not exists staging;
+create schema if not exists intermediate;
 create schema if not exists quarantine;
 create schema if not exists features;
 create schema if not exists ml;
@@ -130,18 +132,26 @@ create table if not exists ml.predictions (
     oof_estimate double,                   -- out-of-fold estimate for labelled customers (band metrics)
     annual_salary double                   -- observed label, null when the salary is not paid here
 );
+-- The amount to publish (observed salary when paid here, else the estimate, rounded to cents) and its
+-- band, computed once by ledgerband.tasks.bands; the publish SQL only reads them.
+alter table ml.predictions add column if not exists income_value double;
+alter table ml.predictions add column if not exists band_index integer;
 
--- One row per run and gate: the decision and every figure behind it (JSON).
+-- One row per run, gate, check and subject: the decision and every figure behind it (JSON).
 create table if not exists published.decisions (
     run_id varchar not null,
     period varchar not null,
-    gate varchar not null,
+    gate varchar not null,                 -- 'quality' | 'accuracy'
     decision varchar not null,             -- 'pass' | 'stop'
     reason varchar not null,
     figures json not null,
     thresholds json not null,
     decided_at timestamp not null
 );
+-- Which check of the gate decided (e.g. manifest_reconciliation, quarantine_share), and on what: an
+-- extract's file name, or 'run' for a check of the whole run.
+alter table published.decisions add column if not exists check_name varchar;
+alter table published.decisions add column if not exists subject varchar;
 
 create table if not exists published.snapshots (
     run_id varchar primary key,

@@ -21,9 +21,9 @@ def test_monthly_flow_at_scale(tmp_path, monkeypatch, prefect_api):
     customers = int(os.environ.get("BENCH_CUSTOMERS", "20000"))
     months = int(os.environ.get("BENCH_MONTHS", "3"))
     monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path))
-    from flows.monthly import monthly_run
-    from tasks.demo_data import generate
-    from tasks.settings import get_settings
+    from ledgerband.flows.monthly import monthly_run
+    from ledgerband.tasks.demo.generator import generate
+    from ledgerband.tasks.settings import get_settings
 
     get_settings.cache_clear()
     s = get_settings()
@@ -37,7 +37,7 @@ def test_monthly_flow_at_scale(tmp_path, monkeypatch, prefect_api):
     total = time.perf_counter() - t1
     con = duckdb.connect(str(s.warehouse_path), read_only=True)
     stages = json.loads(
-        con.execute("select stages from ops.runs where run_id = ?", [result["run_id"]]).fetchall()[0][0]
+        con.execute("select stages from ops.runs where run_id = ?", [result.run_id]).fetchall()[0][0]
     )
     con.close()
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
@@ -50,4 +50,4 @@ def test_monthly_flow_at_scale(tmp_path, monkeypatch, prefect_api):
     ingest_validate = by_stage["ingest"] + by_stage["validate"]
     print(f"  ingest+validate       {files.rows / ingest_validate:8.0f} records/s")
     print(f"  peak RSS              {peak_mb:8.0f} MB")
-    assert result["status"] == "published"
+    assert result.status == "published"

@@ -5,13 +5,16 @@ import shutil
 from pathlib import Path
 
 import pytest
-
-from tasks.errors import ExtractError, GateStopped
-from tasks.gates import quality_gate, settle_loads
-from tasks.ingest import find_manifests, load_customers, load_extract
-from tasks.settings import Settings
-from tasks.validate import validate_load
-from tasks.warehouse import run_sql_file
+from ledgerband.tasks import loads
+from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.errors import ExtractError, GateStopped
+from ledgerband.tasks.gates.quality import quality_gate
+from ledgerband.tasks.ingest import load_customers, load_extract
+from ledgerband.tasks.landing.manifest import find_manifests
+from ledgerband.tasks.period import Period
+from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.validate import validate_load
+from ledgerband.tasks.warehouse import run_sql_file
 
 FIXTURES = Path(__file__).parents[1] / "fixtures"
 
@@ -22,16 +25,26 @@ def _copy(tmp_path: Path, name: str) -> Path:
     return target
 
 
+def _ctx(run_id: str, settings: Settings | None = None) -> RunContext:
+    return RunContext.create("2026-10", settings=settings or Settings(), run_id=run_id)
+
+
 def _ingest(con, landing: Path, settings):
-    [manifest] = find_manifests(landing, "2026-10")
-    load = load_extract(con, manifest, "run-1")
+    [manifest] = find_manifests(landing, Period(2026, 10))
+    load = load_extract(con, _ctx("run-1", settings), manifest)
     return load, validate_load(con, load.load_id, settings)
+
+
+def _settle(con, v, settings) -> None:
+    """What the quality gate task does after deciding: accept or reject the load."""
+    decision = quality_gate([v], settings)
+    loads.settle(con, [v.load_id], decision.passed, decision.reason)
 
 
 def test_good_extract_passes_every_rule(con, settings, tmp_path):
     load, v = _ingest(con, _copy(tmp_path, "ledger_good"), settings)
     assert (load.rows_in_file, load.rows_loaded, v.rows_quarantined) == (5, 5, 0)
-    assert quality_gate([v.to_dict()], settings).passed
+    assert quality_gate([v], settings).passed
 
 
 def test_bad_extract_quarantines_each_record_for_the_right_rules(con, settings, tmp_path):
@@ -64,9 +77,9 @@ def _stage(con, v) -> int:
 
 def test_bad_extract_fails_the_quality_gate_and_is_rejected(con, settings, tmp_path):
     _, v = _ingest(con, _copy(tmp_path, "ledger_bad"), settings)
-    decision = quality_gate([v.to_dict()], settings)
+    decision = quality_gate([v], settings)
     assert not decision.passed and "6 of 7 records" in decision.reason
-    settle_loads(con, [v.to_dict()], decision)
+    loads.settle(con, [v.load_id], decision.passed, decision.reason)
     assert con.execute("select status from ops.loads").fetchall() == [("rejected",)]
 
 
@@ -76,11 +89,11 @@ def test_manifest_row_count_mismatch_stops_and_names_file_and_rule(con, settings
     data = json.loads(path.read_text())
     data["row_count"] = 6
     path.write_text(json.dumps(data))
-    [manifest] = find_manifests(landing, "2026-10")
+    [manifest] = find_manifests(landing, Period(2026, 10))
     with pytest.raises(
         GateStopped, match="ledger-2026-10.csv: rule manifest_row_count: file has 5 data records"
     ):
-        load_extract(con, manifest, "run-1")
+        load_extract(con, _ctx("run-1"), manifest)
     # Nothing is lost: the rows stay in raw under a rejected load, with the reason.
     assert con.execute("select status, rows_loaded from ops.loads").fetchall() == [("rejected", 5)]
 
@@ -91,18 +104,18 @@ def test_manifest_total_mismatch_stops(con, settings, tmp_path):
     data = json.loads(path.read_text())
     data["debit_total"] = "958.10"
     path.write_text(json.dumps(data))
-    [manifest] = find_manifests(landing, "2026-10")
+    [manifest] = find_manifests(landing, Period(2026, 10))
     with pytest.raises(GateStopped, match="rule manifest_debit_total: file sums to 958.09, .* says 958.10"):
-        load_extract(con, manifest, "run-1")
+        load_extract(con, _ctx("run-1"), manifest)
 
 
 def test_file_changed_after_its_manifest_is_refused(con, tmp_path):
     landing = _copy(tmp_path, "ledger_good")
     extract = landing / "2026-10" / "ledger-2026-10.csv"
     extract.write_text(extract.read_text().replace("45.10", "45.11"))
-    [manifest] = find_manifests(landing, "2026-10")
+    [manifest] = find_manifests(landing, Period(2026, 10))
     with pytest.raises(ExtractError, match="SHA-256 .* differs .* changed or truncated"):
-        load_extract(con, manifest, "run-1")
+        load_extract(con, _ctx("run-1"), manifest)
     assert con.execute("select count(*) from raw.ledger_lines").fetchall()[0][0] == 0
 
 
@@ -113,9 +126,9 @@ def test_header_missing_a_column_is_stopped_by_the_table_rule(con, tmp_path):
     lines = [",".join(line.split(",")[:-1]) for line in lines]  # drop merchant_region everywhere
     extract.write_text("\n".join(lines) + "\n")
     _rewrite_manifest(landing)
-    [manifest] = find_manifests(landing, "2026-10")
+    [manifest] = find_manifests(landing, Period(2026, 10))
     with pytest.raises(GateStopped, match="line 1 \\(header\\) breaks rule columns_match_contract"):
-        load_extract(con, manifest, "run-1")
+        load_extract(con, _ctx("run-1"), manifest)
 
 
 def _rewrite_manifest(landing: Path) -> None:
@@ -130,9 +143,9 @@ def _rewrite_manifest(landing: Path) -> None:
 def test_reloading_an_accepted_file_loads_nothing(con, settings, tmp_path):
     landing = _copy(tmp_path, "ledger_good")
     load, v = _ingest(con, landing, settings)
-    settle_loads(con, [v.to_dict()], quality_gate([v.to_dict()], settings))
-    [manifest] = find_manifests(landing, "2026-10")
-    again = load_extract(con, manifest, "run-2")
+    _settle(con, v, settings)
+    [manifest] = find_manifests(landing, Period(2026, 10))
+    again = load_extract(con, _ctx("run-2"), manifest)
     assert again.status == "skipped" and again.load_id == load.load_id
     assert con.execute("select count(*) from raw.ledger_lines").fetchall()[0][0] == 5
 
@@ -140,7 +153,7 @@ def test_reloading_an_accepted_file_loads_nothing(con, settings, tmp_path):
 def test_retrying_a_rejected_file_replaces_the_earlier_attempt(con, settings, tmp_path):
     landing = _copy(tmp_path, "ledger_bad")
     _, v = _ingest(con, landing, settings)
-    settle_loads(con, [v.to_dict()], quality_gate([v.to_dict()], settings))
+    _settle(con, v, settings)
     _ingest(con, landing, settings)
     assert con.execute("select count(*) from raw.ledger_lines").fetchall()[0][0] == 6
     assert con.execute("select count(distinct load_id) from quarantine.ledger_lines").fetchall()[0][0] == 1
@@ -148,35 +161,37 @@ def test_retrying_a_rejected_file_replaces_the_earlier_attempt(con, settings, tm
 
 def test_customer_file_is_loaded_once(con, tmp_path):
     landing = _copy(tmp_path, "ledger_good")
-    first = load_customers(con, landing / "customers.csv", "run-1")
-    second = load_customers(con, landing / "customers.csv", "run-2")
+    first = load_customers(con, _ctx("run-1"), landing / "customers.csv")
+    second = load_customers(con, _ctx("run-2"), landing / "customers.csv")
     assert (first.status, second.status) == ("loaded", "skipped")
     assert con.execute("select count(*) from raw.customers").fetchall()[0][0] == 2
 
 
 def test_feature_suite_passes_real_features_and_names_broken_rules(con, ledger_con_with_features):
-    from tasks.validate import validate_features
+    from ledgerband.tasks.validate import validate_features
 
-    assert validate_features(ledger_con_with_features) == []
+    assert validate_features(ledger_con_with_features).passed
     ledger_con_with_features.execute("update features.customer set debit_count = -1 where customer_id = 'C2'")
     ledger_con_with_features.execute(
         "insert into features.customer select * from features.customer where customer_id = 'C1'"
     )
-    problems = validate_features(ledger_con_with_features)
+    decision = validate_features(ledger_con_with_features)
+    problems = decision.figures["broken_rules"]
+    assert not decision.passed and decision.check == "feature_suite"
     assert "features.customer breaks rule one_row_per_customer in 2 row(s), e.g. customer C1" in problems
     assert "features.customer breaks rule debit_count_not_negative in 1 row(s), e.g. customer C2" in problems
 
 
 @pytest.fixture
 def ledger_con_with_features(con, settings, tmp_path):
-    from tasks.features import build_features
-    from tasks.ingest import load_customers
+    from ledgerband.tasks.features import build_features
+    from ledgerband.tasks.ingest import load_customers
 
     landing = _copy(tmp_path, "ledger_good")
     _, v = _ingest(con, landing, settings)
-    settle_loads(con, [v.to_dict()], quality_gate([v.to_dict()], settings))
-    load_customers(con, landing / "customers.csv", "run-1")
-    build_features(con, "2026-10", Settings(home=tmp_path, features={"window_months": 1}))
+    _settle(con, v, settings)
+    load_customers(con, _ctx("run-1"), landing / "customers.csv")
+    build_features(con, _ctx("run-1", Settings(home=tmp_path, features={"window_months": 1})))
     return con
 
 
@@ -189,7 +204,7 @@ def test_a_customer_file_sent_again_becomes_current_again(con, tmp_path):
         "customer_id,birth_date,sex,home_region,opened_date\nC1,1980-01-01,F,South Reach,2015-01-01\n"
     )
     for path in (first, second, first):  # A, then B, then A again
-        load_customers(con, path, "run")
+        load_customers(con, _ctx("run"), path)
         run_sql_file(con, "staging", "customers")
     assert con.execute("select home_region from staging.customers").fetchall() == [("North Reach",)]
     assert con.execute("select count(*) from raw.customers").fetchall()[0][0] == 2  # A was not loaded twice
@@ -201,9 +216,9 @@ def test_a_header_name_with_a_space_stops_at_the_contract_rule_naming_it(con, tm
     text = extract.read_text()
     extract.write_text(text.replace("txn_id,account_id", "txn_id, account_id", 1))
     _rewrite_manifest(landing)
-    [manifest] = find_manifests(landing, "2026-10")
+    [manifest] = find_manifests(landing, Period(2026, 10))
     with pytest.raises(GateStopped, match="columns_match_contract: .*' account_id'"):
-        load_extract(con, manifest, "run-1")
+        load_extract(con, _ctx("run-1"), manifest)
 
 
 def test_a_booking_sent_again_in_a_later_file_is_quarantined_not_dropped(con, settings, tmp_path):
@@ -211,7 +226,7 @@ def test_a_booking_sent_again_in_a_later_file_is_quarantined_not_dropped(con, se
 
     landing = _copy(tmp_path, "ledger_good")
     _, v = _ingest(con, landing, settings)
-    settle_loads(con, [v.to_dict()], quality_gate([v.to_dict()], settings))
+    _settle(con, v, settings)
     folder = landing / "2026-10"
     header = (folder / "ledger-2026-10.csv").read_text().splitlines()[0]
     late = folder / "ledger-2026-10-late.csv"
@@ -233,8 +248,8 @@ def test_a_booking_sent_again_in_a_later_file_is_quarantined_not_dropped(con, se
             }
         )
     )
-    [manifest] = [m for m in find_manifests(landing, "2026-10") if m.file == late.name]
-    load = load_extract(con, manifest, "run-2")
+    [manifest] = [m for m in find_manifests(landing, Period(2026, 10)) if m.file == late.name]
+    load = load_extract(con, _ctx("run-2"), manifest)
     second = validate_load(con, load.load_id, settings)
     assert second.rule_counts == {"txn_id_not_loaded_before": 1}
     assert con.execute(
@@ -248,7 +263,7 @@ def test_a_file_left_unsettled_by_a_stopped_run_does_not_poison_its_correction(c
     extract = landing / "2026-10" / "ledger-2026-10.csv"
     extract.write_text(extract.read_text().replace("2554.90", "2554.91"))  # the sender corrects a balance
     _rewrite_manifest(landing)
-    [manifest] = find_manifests(landing, "2026-10")
-    load = load_extract(con, manifest, "run-2")
+    [manifest] = find_manifests(landing, Period(2026, 10))
+    load = load_extract(con, _ctx("run-2"), manifest)
     v = validate_load(con, load.load_id, settings)
     assert v.rows_quarantined == 0, v.examples

@@ -8,8 +8,7 @@ from pathlib import Path
 
 import duckdb
 import pytest
-
-from tasks.errors import GateStopped
+from ledgerband.tasks.errors import GateStopped
 
 pytestmark = pytest.mark.integration
 CUSTOMERS = 400
@@ -25,8 +24,8 @@ def home(tmp_path_factory, prefect_api):
 
 @pytest.fixture(scope="module")
 def demo(home):
-    from tasks.demo_data import generate
-    from tasks.settings import get_settings
+    from ledgerband.tasks.demo.generator import generate
+    from ledgerband.tasks.settings import get_settings
 
     get_settings.cache_clear()
     s = get_settings()
@@ -56,7 +55,7 @@ def _spoil_last_month(files) -> None:
 
 @pytest.fixture(scope="module")
 def first_run(demo):
-    from flows.monthly import monthly_run
+    from ledgerband.flows.monthly import monthly_run
 
     return monthly_run("2026-10", demo.landing_dir)
 
@@ -70,7 +69,7 @@ def _q(home: Path, query: str, params=None):
 
 
 def test_a_month_publishes_one_band_row_per_customer(home, first_run):
-    assert first_run["status"] == "published"
+    assert first_run.status == "published"
     assert _q(home, "select count(*), count(distinct customer_id) from published.income_bands") == [
         (CUSTOMERS, CUSTOMERS)
     ]
@@ -82,9 +81,7 @@ def test_a_month_publishes_one_band_row_per_customer(home, first_run):
 
 
 def test_every_stage_is_recorded_in_ops_runs(home, first_run):
-    [(status, stages)] = _q(
-        home, "select status, stages from ops.runs where run_id = ?", [first_run["run_id"]]
-    )
+    [(status, stages)] = _q(home, "select status, stages from ops.runs where run_id = ?", [first_run.run_id])
     stages = json.loads(stages)
     assert status == "published"
     assert [s["stage"] for s in stages] == [
@@ -114,7 +111,7 @@ def test_rows_in_equal_rows_staged_plus_quarantined(home, first_run, demo):
 def test_readers_open_the_published_copy_while_the_warehouse_is_held(home, first_run):
     writer = duckdb.connect(str(home / "warehouse.duckdb"))  # a run in progress holds the file
     try:
-        reader = duckdb.connect(first_run["published_path"], read_only=True)
+        reader = duckdb.connect(str(first_run.published_path), read_only=True)
         assert reader.execute("select count(*) from income_bands").fetchall() == [(CUSTOMERS,)]
         reader.close()
     finally:
@@ -122,7 +119,7 @@ def test_readers_open_the_published_copy_while_the_warehouse_is_held(home, first
 
 
 def test_report_carries_the_cautions_and_the_model_comparison(first_run):
-    html = Path(first_run["report"]).read_text()
+    html = first_run.report.read_text()
     assert "Internal reporting only" in html and "never replace verified income" in html
     assert "baseline_mean" in html and "linear_regression" in html and "decision_tree" in html
     assert "Published:" in html
@@ -130,10 +127,9 @@ def test_report_carries_the_cautions_and_the_model_comparison(first_run):
 
 def test_saved_model_reloads_and_reproduces_the_estimates(home, first_run):
     import numpy as np
+    from ledgerband.tasks.train import load_model, model_frame
 
-    from tasks.train import load_model, model_frame
-
-    folder = home / "models" / "2026-10" / first_run["run_id"]
+    folder = home / "models" / "2026-10" / first_run.run_id
     assert sorted(p.name for p in folder.iterdir()) == ["model.skops", "model_card.json"]
     card = json.loads((folder / "model_card.json").read_text())
     assert "sex" not in card["features"] and "age_years" not in card["features"]
@@ -142,7 +138,7 @@ def test_saved_model_reloads_and_reproduces_the_estimates(home, first_run):
     frame = model_frame(con)
     stored = dict(
         con.execute(
-            "select customer_id, estimate from ml.predictions where run_id = ?", [first_run["run_id"]]
+            "select customer_id, estimate from ml.predictions where run_id = ?", [first_run.run_id]
         ).fetchall()
     )
     con.close()
@@ -151,19 +147,19 @@ def test_saved_model_reloads_and_reproduces_the_estimates(home, first_run):
 
 
 def test_rerun_loads_nothing_twice_and_publishes_a_new_snapshot(home, first_run, demo):
-    from flows.monthly import monthly_run
+    from ledgerband.flows.monthly import monthly_run
 
     raw_before = _q(home, "select count(*) from raw.ledger_lines")[0][0]
     second = monthly_run("2026-10", demo.landing_dir)
     assert _q(home, "select count(*) from raw.ledger_lines")[0][0] == raw_before
     assert _q(home, "select count(*) from ops.loads")[0][0] == 4  # three extracts + customers, once each
-    assert _q(home, "select run_id from published.snapshots where is_current") == [(second["run_id"],)]
+    assert _q(home, "select run_id from published.snapshots where is_current") == [(second.run_id,)]
     assert _q(home, "select count(*) from published.income_bands")[0][0] == CUSTOMERS
 
 
 def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(home, first_run, demo, monkeypatch):
-    from flows.monthly import monthly_run
-    from tasks.settings import get_settings
+    from ledgerband.flows.monthly import monthly_run
+    from ledgerband.tasks.settings import get_settings
 
     current = _q(home, "select run_id from published.snapshots where is_current")
     monkeypatch.setenv("LEDGERBAND_ACCURACY__MIN_BAND_ACCURACY", "0.999")
@@ -187,8 +183,8 @@ def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(home, first_
 
 
 def test_bad_extract_stops_the_run_at_the_quality_gate(home, first_run, monkeypatch, tmp_path):
-    from flows.monthly import monthly_run
-    from tasks.settings import get_settings
+    from ledgerband.flows.monthly import monthly_run
+    from ledgerband.tasks.settings import get_settings
 
     landing = tmp_path / "landing"
     shutil.copytree(Path(__file__).parents[1] / "fixtures" / "ledger_bad", landing)
@@ -203,22 +199,30 @@ def test_bad_extract_stops_the_run_at_the_quality_gate(home, first_run, monkeypa
         monthly_run("2026-10", landing)
     assert _q(tmp_path / "state", "select status from ops.runs") == [("stopped",)]
     assert _q(tmp_path / "state", "select status from ops.loads where dataset = 'ledger'") == [("rejected",)]
-    assert _q(tmp_path / "state", "select gate, decision from published.decisions") == [("quality", "stop")]
+    # Every check's decision is kept; the quarantine share is the one that stopped the run.
+    assert _q(
+        tmp_path / "state", "select gate, check_name, decision from published.decisions order by decided_at"
+    ) == [
+        ("quality", "extract_contract", "pass"),
+        ("quality", "manifest_reconciliation", "pass"),
+        ("quality", "quarantine_share", "stop"),
+    ]
     html = (tmp_path / "state" / "reports" / "2026-10" / "index.html").read_text()
     assert "Stopped by the quality gate" in html and "amount_format" in html and "line 4" in html
     reader = duckdb.connect(
         str(tmp_path / "state" / "published" / "ledgerband_published.duckdb"), read_only=True
     )
-    assert reader.execute("select gate, decision from decisions").fetchall() == [("quality", "stop")]
+    assert reader.execute("select gate, decision from decisions where decision = 'stop'").fetchall() == [
+        ("quality", "stop")
+    ]
     assert reader.execute("select count(*) from income_bands").fetchall() == [(0,)]
     reader.close()
 
 
 def test_cli_names_the_missing_period_folder_without_a_traceback(prefect_api, tmp_path, monkeypatch):
+    from ledgerband.flows.cli import app
+    from ledgerband.tasks.settings import get_settings
     from typer.testing import CliRunner
-
-    from flows.cli import app
-    from tasks.settings import get_settings
 
     monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path / "state"))
     get_settings.cache_clear()
@@ -237,11 +241,11 @@ def test_estimates_for_customers_without_payroll_are_not_biased(home, first_run,
     Guards against features whose meaning differs between the two groups (income credits did: they
     once biased every estimate by about a third of the mean income).
     """
-    from tasks.demo_data import truth_check
-    from tasks.settings import get_settings
+    from ledgerband.tasks.demo.truth import truth_check
+    from ledgerband.tasks.settings import get_settings
 
     con = duckdb.connect(str(home / "warehouse.duckdb"), read_only=True)
-    t = truth_check(con, demo.answers, first_run["run_id"], get_settings().bands.edges)
+    t = truth_check(con, demo.answers, first_run.run_id, get_settings().bands.edges)
     con.close()
     assert t["customers_estimated"] >= 30
     assert abs(t["mean_error"]) < 0.10 * t["mean_true_income"]

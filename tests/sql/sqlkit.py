@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from datetime import date, datetime, timedelta
 
-from tasks.contract import LEDGER_COLUMNS
+from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
 
 
 class Ledger:
@@ -59,7 +59,7 @@ class Ledger:
 
     def load(self, customers: list[tuple[str, str, str]] | None = None, status: str = "accepted") -> None:
         """Write the lines as one load (plus a customer file) and build staging from them."""
-        from tasks.warehouse import run_sql_file
+        from ledgerband.tasks.warehouse import run_sql_file
 
         con = self.con
         now = datetime(2026, 11, 2, 6, 0)

@@ -1,15 +1,16 @@
-"""warehouse/sql/features/salary_streams.sql and customer_salary.sql on hand-made payroll."""
+"""warehouse/sql/intermediate/{payroll_credits,salary_streams}.sql and features/customer_salary.sql on hand-made payroll."""
 
 from datetime import date
 
 import pytest
+from ledgerband.tasks.warehouse import run_sql_file
 
-from tasks.warehouse import run_sql_file
 from tests.sql.sqlkit import WINDOW, every
 
 
 def _build(con, window=WINDOW):
-    run_sql_file(con, "features", "salary_streams", window)
+    run_sql_file(con, "intermediate", "payroll_credits", window)
+    run_sql_file(con, "intermediate", "salary_streams", window)
     run_sql_file(con, "features", "customer_salary", window)
 
 
@@ -18,7 +19,7 @@ WINTER = {"window_start": date(2026, 12, 1), "window_end": date(2027, 2, 28)}
 
 def _stream(con, customer_id):
     return con.execute(
-        "select pay_frequency, pay_amount, annual_salary, is_current from features.salary_streams where customer_id = ?",
+        "select pay_frequency, pay_amount, annual_salary, is_current from intermediate.salary_streams where customer_id = ?",
         [customer_id],
     ).fetchall()
 

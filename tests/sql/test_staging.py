@@ -2,7 +2,9 @@
 
 from datetime import date, datetime
 
-from tasks.warehouse import run_sql_file
+from ledgerband.tasks.warehouse import run_sql_file
+
+from tests.sql.sqlkit import WINDOW
 
 
 def test_quarantined_records_do_not_reach_staging(con, ledger):
@@ -34,25 +36,23 @@ def test_a_txn_id_twice_in_one_load_never_doubles_in_staging(con, ledger):
 
 
 def test_payroll_is_recognised_by_purpose_or_sub_family(con, ledger):
+    """warehouse/sql/intermediate/payroll_credits.sql: which credits count as payroll by their codes."""
     # ISO 20022: purpose code SALA, or bank transaction code sub-family SALA (PMNT/RCDT/SALA).
     ledger.add("C1", date(2026, 10, 1), 1.0, "CRDT", purpose_code="SALA", bank_txn_code="PMNT/RCDT/DMCT")
-    ledger.add("C1", date(2026, 10, 1), 2.0, "CRDT", bank_txn_code="PMNT/RCDT/SALA")
-    ledger.add("C1", date(2026, 10, 1), 3.0, "CRDT", purpose_code="PENS", bank_txn_code="PMNT/RCDT/DMCT")
+    ledger.add("C1", date(2026, 10, 2), 2.0, "CRDT", bank_txn_code="PMNT/RCDT/SALA")
+    ledger.add("C1", date(2026, 10, 3), 3.0, "CRDT", purpose_code="PENS", bank_txn_code="PMNT/RCDT/DMCT")
     ledger.add(
-        "C1", date(2026, 10, 1), 4.0, "DBIT", purpose_code="SALA", bank_txn_code="PMNT/ICDT/SALA"
+        "C1", date(2026, 10, 4), 4.0, "DBIT", purpose_code="SALA", bank_txn_code="PMNT/ICDT/SALA"
     )  # paying staff
-    ledger.add(
-        "C1", date(2026, 10, 1), 5.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT"
-    )  # no purpose code: false, not null
+    ledger.add("C1", date(2026, 10, 5), 5.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT")  # no purpose code
     ledger.load()
-    got = con.execute(
-        "select amount::double, is_payroll_coded from staging.transactions order by amount"
-    ).fetchall()
-    assert got == [(1.0, True), (2.0, True), (3.0, False), (4.0, False), (5.0, False)]
+    run_sql_file(con, "intermediate", "payroll_credits", WINDOW)
+    got = con.execute("select amount::double from intermediate.payroll_credits order by amount").fetchall()
+    assert got == [(1.0,), (2.0,)]
 
 
 def test_a_txn_id_in_a_later_accepted_load_keeps_the_earlier_booking(con, ledger):
-    from tasks.contract import LEDGER_COLUMNS
+    from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
 
     ledger.add("C1", date(2026, 10, 1), 10.0, txn_id="DUP")
     ledger.load()  # load L1, loaded 2026-11-02 06:00

@@ -1,7 +1,6 @@
 import numpy as np
 import pytest
-
-from tasks.bands import assign_band_index, band_agreement, band_table
+from ledgerband.tasks.bands import assign_band_index, band_agreement, band_table
 
 EDGES = (25_000, 40_000, 60_000)
 
@@ -36,32 +35,40 @@ def test_band_agreement_counts_exact_and_adjacent_bands():
 
 
 def test_published_band_sql_agrees_with_python_at_every_edge(con):
-    """warehouse/sql/published/income_bands.sql and assign_band_index must draw the same lines."""
+    """warehouse/sql/published/income_bands.sql only looks up the band set by bands.income_to_publish:
+    the published band must be the Python band of the published (rounded) amount at every edge."""
     from datetime import datetime
 
-    from tasks.bands import write_band_table
-    from tasks.publish import _insert_from_file
+    import pandas as pd
+    from ledgerband.tasks.bands import income_to_publish, write_band_table
+    from ledgerband.tasks.publish import insert_from_file
 
     write_band_table(con, EDGES, "EUR")
-    values = [0.0, 24_999.99, 25_000.0, 40_000.0, 59_999.99, 60_000.0, 250_000.0]
-    for i, v in enumerate(values):
-        # Odd rows carry an observed salary (which wins over the estimate), even rows only an estimate.
-        observed = v if i % 2 else None
-        con.execute(
-            "insert into ml.predictions values ('r1', ?, ?, null, ?)",
-            [f"C{i}", 1.0 if observed else v, observed],
-        )
-    _insert_from_file(
+    # 24_999.996 rounds to 25,000.00: published amount and band must agree after rounding.
+    values = [0.0, 24_999.99, 25_000.0, 40_000.0, 59_999.99, 60_000.0, 250_000.0, 24_999.996]
+    # Odd rows carry an observed salary (which wins over the estimate), even rows only an estimate.
+    observed = pd.Series([v if i % 2 else None for i, v in enumerate(values)], dtype="float64")
+    estimate = pd.Series([1.0 if i % 2 else v for i, v in enumerate(values)], dtype="float64")
+    rows = pd.DataFrame(
+        {"run_id": "r1", "customer_id": [f"C{i}" for i in range(len(values))], "estimate": estimate}
+    ).assign(annual_salary=observed)
+    rows = rows.join(income_to_publish(observed, estimate, EDGES))
+    con.register("rows", rows)
+    con.execute("insert into ml.predictions by name select * from rows")
+    insert_from_file(
         con,
         "published.income_bands_history",
         "income_bands",
         {"run_id": "r1", "period": "2026-10", "model_version": "m", "published_at": datetime(2026, 11, 2)},
     )
     got = con.execute(
-        "select customer_id, income_band, band_source from published.income_bands_history order by customer_id"
+        "select customer_id, income_band, band_source, annual_income_estimate::double "
+        "from published.income_bands_history order by customer_id"
     ).fetchall()
-    expected_index = assign_band_index(values, EDGES)
-    assert [g[1] for g in got] == [f"B{k + 1}" for k in expected_index]
+    published_amounts = [g[3] for g in got]
+    assert published_amounts == [round(v, 2) for v in values]
+    assert [g[1] for g in got] == [f"B{k + 1}" for k in assign_band_index(published_amounts, EDGES)]
+    assert got[-1][1] == "B2"  # 24,999.996 is published as 25,000.00, so it belongs in B2
     assert [g[2] for g in got] == [
         "model_estimate" if i % 2 == 0 else "observed_salary" for i in range(len(values))
     ]

@@ -6,10 +6,9 @@ import sys
 
 import duckdb
 import pytest
+from ledgerband.flows.cli import app
+from ledgerband.tasks.warehouse import apply_schema
 from typer.testing import CliRunner
-
-from flows.cli import app
-from tasks.warehouse import apply_schema
 
 runner = CliRunner()
 

@@ -6,9 +6,8 @@ from decimal import Decimal
 import numpy as np
 import pandas as pd
 import pytest
-
-from tasks.contract import LEDGER_COLUMNS
-from tasks.demo_data import generate
+from ledgerband.tasks.demo.generator import generate
+from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
 
 
 @pytest.fixture(scope="module")

@@ -1,19 +1,25 @@
 import math
 
-from tasks.gates import accuracy_gate, quality_gate
-from tasks.settings import Settings
+import pytest
+from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.errors import GateStopped
+from ledgerband.tasks.gates import Decision, enforce
+from ledgerband.tasks.gates.accuracy import accuracy_gate
+from ledgerband.tasks.gates.quality import quality_gate
+from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.train import TrainSummary
+from ledgerband.tasks.validate import ValidationSummary
 
 
-def _validation(quarantined: int, rows: int = 1000) -> dict:
-    return {
-        "load_id": "L1",
-        "source_file": "/landing/2026-10/ledger-2026-10.csv",
-        "rows_in_file": rows,
-        "rows_quarantined": quarantined,
-        "quarantined_share": quarantined / rows,
-        "rule_counts": {"amount_format": quarantined},
-        "examples": ["line 17: amount_format (amount='1.5')"],
-    }
+def _validation(quarantined: int, rows: int = 1000) -> ValidationSummary:
+    return ValidationSummary(
+        load_id="L1",
+        source_file="/landing/2026-10/ledger-2026-10.csv",
+        rows_in_file=rows,
+        rows_quarantined=quarantined,
+        rule_counts={"amount_format": quarantined},
+        examples=["line 17: amount_format (amount='1.5')"],
+    )
 
 
 def test_quality_gate_passes_at_exactly_the_threshold():
@@ -33,8 +39,12 @@ def test_quality_gate_stop_names_file_figure_threshold_and_rule():
         assert part in d.reason
 
 
-def _train(**changes) -> dict:
+def _train(**changes) -> TrainSummary:
     base = {
+        "run_id": "r1",
+        "period": "2026-10",
+        "n_customers": 2000,
+        "candidates": [],
         "n_labelled": 1500,
         "champion": "linear_regression",
         "baseline_rmse": 20_000.0,
@@ -45,7 +55,7 @@ def _train(**changes) -> dict:
         "within_one_band": 0.95,
         "note": None,
     }
-    return {**base, **changes}
+    return TrainSummary(**{**base, **changes})
 
 
 def test_accuracy_gate_passes_a_good_champion():
@@ -77,23 +87,62 @@ def test_accuracy_gate_stops_when_no_model_could_be_trained():
     assert not d.passed and "only 6 labelled customers" in d.reason
 
 
-def test_a_stop_raised_after_a_passed_gate_replaces_the_pass(con):
-    from tasks.gates import Decision, record_decision, record_stop
+def _decisions(con):
+    return con.execute(
+        "select gate, check_name, subject, decision, reason, figures from published.decisions order by decided_at"
+    ).fetchall()
 
-    record_decision(
-        con, "r1", "2026-10", Decision("quality", True, "extracts within the limit", {"f.csv": 0.0})
+
+def test_enforce_records_a_pass_and_lets_the_run_go_on(con):
+    ctx = RunContext.create("2026-10", settings=Settings(), run_id="r1")
+    d = Decision("quality", "quarantine_share", True, "within the limit", {"f.csv": 0.0})
+    assert enforce(con, ctx, d) is d
+    assert _decisions(con) == [
+        ("quality", "quarantine_share", "run", "pass", "within the limit", '{"f.csv": 0.0}')
+    ]
+
+
+def test_enforce_records_the_stop_with_its_figures_before_raising(con):
+    ctx = RunContext.create("2026-10", settings=Settings(), run_id="r1")
+    d = Decision(
+        "quality", "manifest_reconciliation", False, "f.csv: rows differ", {"rows": 5}, subject="f.csv"
     )
-    record_stop(con, "r1", "2026-10", "quality", "features.customer breaks rule one_row_per_customer")
-    assert con.execute("select decision, reason, figures from published.decisions").fetchall() == [
-        ("stop", "features.customer breaks rule one_row_per_customer", '{"f.csv": 0.0}')
+    with pytest.raises(GateStopped, match="quality gate stopped the run: f.csv: rows differ") as stop:
+        enforce(con, ctx, d)
+    assert stop.value.check == "manifest_reconciliation" and stop.value.run_status == "stopped"
+    assert _decisions(con) == [
+        ("quality", "manifest_reconciliation", "f.csv", "stop", "f.csv: rows differ", '{"rows": 5}')
     ]
 
 
-def test_a_stop_with_figures_is_not_overwritten(con):
-    from tasks.gates import Decision, record_decision, record_stop
-
-    record_decision(con, "r1", "2026-10", Decision("quality", False, "share too high", {"share": 0.2}))
-    record_stop(con, "r1", "2026-10", "quality", "quality gate stopped the run: share too high")
-    assert con.execute("select reason, figures from published.decisions").fetchall() == [
-        ("share too high", '{"share": 0.2}')
+def test_a_later_check_keeps_the_earlier_checks_decisions(con):
+    """A feature-suite stop after the extracts passed must not erase what the extracts' check measured."""
+    ctx = RunContext.create("2026-10", settings=Settings(), run_id="r1")
+    enforce(con, ctx, Decision("quality", "quarantine_share", True, "within the limit", {"f.csv": 0.0}))
+    with pytest.raises(GateStopped):
+        enforce(con, ctx, Decision("quality", "feature_suite", False, "features.customer breaks rule x"))
+    assert [(r[1], r[3]) for r in _decisions(con)] == [
+        ("quarantine_share", "pass"),
+        ("feature_suite", "stop"),
     ]
+
+
+def test_enforce_writes_alongside_work_in_the_same_transaction(con):
+    """If recording fails, the work done alongside (e.g. accepting the loads) is rolled back with it."""
+    ctx = RunContext.create("2026-10", settings=Settings(), run_id="r1")
+    import duckdb
+
+    con.execute("create table t (x int)")
+    con.execute("drop table published.decisions")  # recording the decision will fail
+    with pytest.raises(duckdb.CatalogException):
+        enforce(
+            con,
+            ctx,
+            Decision("quality", "quarantine_share", True, "ok"),
+            alongside=lambda c: c.execute("insert into t values (1)"),
+        )
+    assert con.execute("select count(*) from t").fetchall() == [(0,)]
+
+
+def test_an_accuracy_stop_withholds_the_month():
+    assert GateStopped("accuracy", "too weak").run_status == "withheld"

@@ -5,10 +5,11 @@ from pathlib import Path
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
-
-from tasks.contract import LEDGER_COLUMNS
-from tasks.errors import ExtractError
-from tasks.ingest import find_manifests, read_manifest, read_records
+from ledgerband.tasks.errors import ExtractError
+from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
+from ledgerband.tasks.landing.manifest import find_manifests, read_manifest
+from ledgerband.tasks.landing.records import read_records
+from ledgerband.tasks.period import Period
 
 GOOD = Path(__file__).parents[1] / "fixtures" / "ledger_good"
 
@@ -49,12 +50,12 @@ def test_manifest_in_the_wrong_period_folder_is_refused(tmp_path):
         (GOOD / "2026-10" / "ledger-2026-10.manifest.json").read_text()
     )
     with pytest.raises(ExtractError, match="says period 2026-10, but it lies in the folder for 2026-11"):
-        find_manifests(tmp_path, "2026-11")
+        find_manifests(tmp_path, Period(2026, 11))
 
 
 def test_missing_period_folder_says_where_it_looked(tmp_path):
     with pytest.raises(ExtractError, match=str(tmp_path / "2026-09")):
-        find_manifests(tmp_path, "2026-09")
+        find_manifests(tmp_path, Period(2026, 9))
 
 
 def test_csv_records_keep_their_line_numbers_and_malformed_lines_are_returned(tmp_path):
@@ -92,19 +93,19 @@ def test_parquet_records_are_numbered_and_typed_columns_become_text(tmp_path):
 
 
 def test_a_cleaned_landing_folder_is_fine_once_its_month_is_accepted(tmp_path):
-    from tasks.ingest import manifests_to_load
+    from ledgerband.tasks.landing.manifest import manifests_to_load
 
     landing = tmp_path / "landing"
     shutil.copytree(GOOD / "2026-10", landing / "2026-10")
-    got = manifests_to_load(landing, ["2026-09", "2026-10"], accepted_periods={"2026-09"})
+    got = manifests_to_load(landing, [Period(2026, 9), Period(2026, 10)], accepted_periods={Period(2026, 9)})
     assert [p.name for p in got] == ["ledger-2026-10.manifest.json"]
 
 
 def test_a_month_neither_landed_nor_accepted_is_an_error_naming_the_folder(tmp_path):
-    from tasks.ingest import manifests_to_load
+    from ledgerband.tasks.landing.manifest import manifests_to_load
 
     with pytest.raises(ExtractError, match=str(tmp_path / "2026-09")):
-        manifests_to_load(tmp_path, ["2026-09"], accepted_periods=set())
+        manifests_to_load(tmp_path, [Period(2026, 9)], accepted_periods=set())
 
 
 def test_a_byte_order_mark_is_not_part_of_the_first_column_name(tmp_path):
@@ -140,7 +141,7 @@ def test_manifest_with_a_bad_period_names_the_manifest(tmp_path):
 
 def test_contract_columns_and_the_suite_header_rule_agree():
     # Two declarations of one contract (code that loads, the rule that checks): they must not drift.
-    from tasks.validate import read_suite
+    from ledgerband.tasks.validate import read_suite
 
     [rule] = read_suite("ledger_lines").table
     assert rule["kwargs"]["column_set"] == list(LEDGER_COLUMNS)

@@ -1,9 +1,8 @@
 from datetime import date
 
 import pytest
-
-from tasks.errors import LedgerbandError
-from tasks.warehouse import Period
+from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.period import Period
 
 
 def test_period_bounds_follow_the_calendar_including_leap_february():

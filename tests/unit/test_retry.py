@@ -1,8 +1,7 @@
 import pytest
+from ledgerband.tasks.errors import ExtractError, GateStopped
+from ledgerband.tasks.retry import retry_on_io
 from prefect.states import Failed
-
-from tasks.errors import ExtractError, GateStopped
-from tasks.retry import retry_on_io
 
 
 @pytest.mark.parametrize(

@@ -1,7 +1,10 @@
+from pathlib import Path
+
 import pytest
+from ledgerband.tasks.settings import Settings, TrainSettings
 from pydantic import ValidationError
 
-from tasks.settings import Settings, TrainSettings
+EXAMPLE = Path(__file__).parents[2] / "ledgerband.toml"  # the commented example in the repository
 
 
 def test_misspelt_environment_variable_fails_loudly(monkeypatch):
@@ -45,9 +48,30 @@ def test_band_edges_must_be_positive_and_increasing(edges):
 
 
 def test_the_shipped_settings_file_is_valid(monkeypatch):
-    from tasks.settings import PROJECT_ROOT
-
-    monkeypatch.setenv("LEDGERBAND_CONFIG", str(PROJECT_ROOT / "ledgerband.toml"))
+    monkeypatch.setenv("LEDGERBAND_CONFIG", str(EXAMPLE))
     s = Settings()
     assert s.quality.max_quarantine_share == 0.01
     assert s.bands.edges == (25_000, 40_000, 60_000, 85_000, 120_000)
+
+
+def test_the_example_settings_file_says_exactly_the_defaults(monkeypatch, tmp_path):
+    """ledgerband.toml is documentation of the defaults in code: it must list every key, with its default."""
+    import tomllib
+
+    monkeypatch.setenv("LEDGERBAND_CONFIG", str(EXAMPLE))
+    from_file = Settings(home=tmp_path).model_dump()
+    defaults = Settings.model_construct().model_dump()  # no sources at all: the code's defaults
+    defaults["home"] = tmp_path
+    assert from_file == defaults
+    written = tomllib.loads(EXAMPLE.read_text())
+    for section, fields in Settings.model_fields.items():
+        if section in (
+            "home",
+            "landing_dir",
+        ):  # set per machine (LEDGERBAND_HOME, --landing), not in the example
+            continue
+        assert section in written, f"ledgerband.toml does not show [{section}] / {section}"
+        sub = getattr(fields.annotation, "model_fields", None)
+        if sub:
+            missing = sorted(set(sub) - set(written[section]))
+            assert not missing, f"ledgerband.toml [{section}] does not show {missing}"

@@ -1,14 +1,14 @@
 -- features.customer_salary
 -- Grain: one row per customer with at least one current, classified payroll stream (the model's label).
 -- Key: customer_id.
--- Reads: features.salary_streams.
+-- Reads: intermediate.salary_streams.
 -- Several employers add up. Customers without such a stream have no row: the model estimates them.
 
 with
 
 streams as (
     select *
-    from features.salary_streams
+    from intermediate.salary_streams
     where is_current and annual_salary is not null
 ),
 

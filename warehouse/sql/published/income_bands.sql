@@ -2,7 +2,9 @@
 -- Grain: one row per customer in the run. Key: run_id, customer_id.
 -- Reads: ml.predictions, ref.income_bands.
 -- Parameters: $run_id, $period, $model_version, $published_at.
--- Observed salary wins over the model: a customer paid here is banded on what they are paid.
+-- Observed salary wins over the model: a customer paid here is banded on what they are paid. The amount
+-- (rounded to cents) and its band were set together by ledgerband.tasks.bands when the run trained, so
+-- the published amount and its band always agree; this file only looks the band up.
 
 with
 
@@ -12,21 +14,15 @@ predictions as (
     where run_id = $run_id
 ),
 
-valued as (
-    select
-        customer_id,
-        -- Rounded before banding, so the published amount and its band always agree.
-        round(coalesce(annual_salary, estimate), 2) as annual_income_estimate,
-        case when annual_salary is not null then 'observed_salary' else 'model_estimate' end as band_source
-    from predictions
-),
-
 banded as (
-    select valued.*, bands.income_band
-    from valued
-    inner join ref.income_bands as bands
-        on (bands.lower_bound is null or valued.annual_income_estimate >= bands.lower_bound)
-        and (bands.upper_bound is null or valued.annual_income_estimate < bands.upper_bound)
+    select
+        predictions.customer_id,
+        predictions.income_value,
+        case when predictions.annual_salary is not null then 'observed_salary' else 'model_estimate' end
+            as band_source,
+        bands.income_band
+    from predictions
+    inner join ref.income_bands as bands on bands.band_index = predictions.band_index
 ),
 
 final as (
@@ -36,7 +32,7 @@ final as (
         customer_id,
         income_band,
         band_source,
-        annual_income_estimate::decimal(18, 2) as annual_income_estimate,
+        income_value::decimal(18, 2) as annual_income_estimate,
         $model_version as model_version,
         $published_at::timestamp as published_at
     from banded

@@ -1,5 +1,9 @@
 """Alerts to the owners when a run fails. The default sink is a local JSON-lines log in the state folder;
-webhook and email sinks come with the scheduling work (see DEVELOPERS.md)."""
+webhook and email sinks come with the scheduling work (see DEVELOPERS.md).
+
+To add a sink: a function `(alert: dict, settings) -> None` that delivers one alert, called from
+`alert_owners_hook` after the local log (the log is written first, so no alert is lost).
+"""
 
 from __future__ import annotations
 
@@ -24,7 +28,7 @@ def write_alert(log_path: Path, *, flow_run: str, state: str, message: str, owne
 
 def alert_owners_hook(flow, flow_run, state) -> None:
     """Prefect on_failure hook: tell the owners which run failed and why."""
-    from tasks.settings import get_settings
+    from ledgerband.tasks.settings import get_settings
 
     settings = get_settings()
     write_alert(

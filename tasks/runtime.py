@@ -1,4 +1,9 @@
-"""Process environment for the libraries we drive: set before any of them is imported."""
+"""Process environment for the libraries we drive. Called by the entry points (CLI), never on import.
+
+Prefect reads PREFECT_HOME when it is first imported, so `configure_process_env()` must run before
+`import prefect`: the CLI calls it first thing. Code that imports the flows itself (a Prefect worker, a
+test session) brings its own Prefect configuration.
+"""
 
 from __future__ import annotations
 
@@ -6,7 +11,7 @@ import os
 from pathlib import Path
 
 # setdefault: an operator's explicit choice (e.g. PREFECT_API_URL of a real server) always wins.
-_QUIET_OFFLINE = {
+QUIET_OFFLINE = {
     "DO_NOT_TRACK": "1",
     "PREFECT_SERVER_ANALYTICS_ENABLED": "false",
     # The temporary local API needs more than the default 20 s on a 2-core machine (STACK.md).
@@ -17,17 +22,17 @@ _QUIET_OFFLINE = {
 }
 
 
-def state_home() -> Path:
-    """Where all runtime state lives; `LEDGERBAND_HOME` overrides the git-ignored default."""
-    from tasks.settings import _default_home
+def configure_process_env() -> Path:
+    """Point Prefect, GX and matplotlib at the state folder and keep them offline and quiet.
 
-    return _default_home().resolve()
+    Returns the state folder. Variables already set are left alone.
+    """
+    from ledgerband.tasks.settings import default_home
 
-
-def configure_process_env() -> None:
-    for key, value in _QUIET_OFFLINE.items():
+    for key, value in QUIET_OFFLINE.items():
         os.environ.setdefault(key, value)
-    home = state_home()
+    home = default_home().resolve()
     prefect_home = Path(os.environ.setdefault("PREFECT_HOME", str(home / "prefect")))
     prefect_home.mkdir(parents=True, exist_ok=True)
     os.environ.setdefault("MPLCONFIGDIR", str(home / "cache" / "matplotlib"))
+    return home

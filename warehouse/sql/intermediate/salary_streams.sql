@@ -1,8 +1,8 @@
--- features.salary_streams
+-- intermediate.salary_streams
 -- Grain: one row per (customer_id, payer_id) stream of payroll credits inside the window.
 -- Key: customer_id, payer_id.
--- Reads: staging.transactions, ref.pay_frequencies.
--- Parameters: $window_start, $window_end (dates, inclusive).
+-- Reads: intermediate.payroll_credits, ref.pay_frequencies.
+-- Parameters: $window_end (date, inclusive).
 -- Regular payments are those between 60% and 160% of the stream's median amount (our choice: a pay rise
 -- stays regular, a bonus or a small top-up does not); only they set the frequency and the pay amount.
 -- Pay frequency comes from the median gap in days between consecutive regular pay dates (robust to one
@@ -12,22 +12,8 @@
 
 with
 
-transactions as (
-    select *
-    from staging.transactions
-    where booking_date between $window_start and $window_end
-),
-
 payroll_credits as (
-    -- One row per payer and day: a salary split in two, or paid with a same-day extra, is one payment.
-    select
-        customer_id,
-        coalesce(counterparty_id, 'payer not given') as payer_id,
-        booking_date,
-        sum(amount) as amount
-    from transactions
-    where is_payroll_coded
-    group by all
+    select * from intermediate.payroll_credits
 ),
 
 stream_typical as (

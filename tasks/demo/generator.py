@@ -21,10 +21,9 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
-
-from tasks.contract import CUSTOMER_COLUMNS, sha256_file
-from tasks.errors import LedgerbandError
-from tasks.warehouse import Period
+from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.landing.contract import CUSTOMER_COLUMNS, sha256_file
+from ledgerband.tasks.period import Period
 
 REGIONS = (
     "Corrandale Central",
@@ -359,7 +358,7 @@ def generate(
             f"demo needs 1 to 24 months and at least 50 customers (got {months}, {customers})"
         )
     rng = np.random.default_rng(seed)
-    periods = Period.parse(end_period).window(months)
+    periods = list(Period.parse(end_period).window(months))
     start, end = periods[0].start, periods[-1].end
     cust = _customers(rng, customers, end)
     income_rows, answers = _income_credits(rng, cust, start, end)
@@ -464,31 +463,3 @@ def generate(
     return DemoFiles(
         landing_dir, [str(p) for p in periods], extracts, manifests, customers_path, answers_path, len(tx)
     )
-
-
-def truth_check(con, answers_path: Path, run_id: str, edges: tuple[float, ...]) -> dict:
-    """Demo only: compare a run's estimates with the true incomes the generator wrote.
-
-    Cross-validation can only measure customers whose salary is paid here; the customers the model is
-    for (self-employed, pensioners, paid elsewhere) are measured here, which only a synthetic bank allows.
-    """
-    from tasks.bands import assign_band_index
-
-    answers = pd.read_csv(answers_path, dtype={"customer_id": str})
-    pred = con.execute(
-        "select customer_id, estimate, annual_salary from ml.predictions where run_id = ?", [run_id]
-    ).df()
-    m = pred.merge(answers, on="customer_id")
-    estimated = m[m["annual_salary"].isna()]
-    err = estimated["estimate"] - estimated["true_annual_income"]
-    t = assign_band_index(estimated["true_annual_income"], edges)
-    p = assign_band_index(estimated["estimate"], edges)
-    return {
-        "customers_estimated": int(len(estimated)),
-        "rmse": float(np.sqrt(np.mean(err**2))) if len(err) else float("nan"),
-        "mae": float(np.mean(np.abs(err))) if len(err) else float("nan"),
-        "mean_error": float(err.mean()) if len(err) else float("nan"),
-        "mean_true_income": float(estimated["true_annual_income"].mean()) if len(err) else float("nan"),
-        "band_accuracy": float(np.mean(t == p)) if len(err) else float("nan"),
-        "within_one_band": float(np.mean(np.abs(t - p) <= 1)) if len(err) else float("nan"),
-    }

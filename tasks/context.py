@@ -1,0 +1,60 @@
+"""The run context: everything a stage needs to know about the run it belongs to, built once by the flow."""
+
+from __future__ import annotations
+
+import uuid
+from dataclasses import dataclass
+from datetime import datetime
+from pathlib import Path
+
+from ledgerband.tasks.period import Period, Window
+from ledgerband.tasks.settings import Settings, get_settings
+
+
+@dataclass(frozen=True)
+class RunContext:
+    """One monthly run: its id, its period and feature window, where its files are, its settings."""
+
+    run_id: str
+    period: Period
+    window: Window
+    landing_dir: Path
+    settings: Settings
+    started_at: datetime
+
+    @classmethod
+    def create(
+        cls,
+        period: str | Period,
+        landing_dir: Path | str | None = None,
+        *,
+        settings: Settings | None = None,
+        run_id: str | None = None,
+    ) -> RunContext:
+        """The context for running `period`; the period is parsed here and nowhere after."""
+        settings = settings or get_settings()
+        period = Period.parse(period)
+        return cls(
+            run_id=run_id or str(uuid.uuid4()),
+            period=period,
+            window=period.window(settings.features.window_months),
+            landing_dir=Path(landing_dir) if landing_dir else settings.landing,
+            settings=settings,
+            started_at=datetime.now(),
+        )
+
+    @property
+    def warehouse(self) -> Path:
+        return self.settings.warehouse_path
+
+    @property
+    def customers_file(self) -> Path:
+        return self.landing_dir / "customers.csv"
+
+    def window_params(self) -> dict:
+        """Bound parameters of the window-scoped SQL files."""
+        return {
+            "window_start": self.window.start,
+            "window_end": self.window.end,
+            "large_debit_threshold": self.settings.features.large_debit_threshold,
+        }

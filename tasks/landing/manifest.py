@@ -1,0 +1,116 @@
+"""Control manifests: one per extract file, written by the sending system (the extract contract)."""
+
+from __future__ import annotations
+
+import json
+import re
+from collections.abc import Iterable
+from dataclasses import dataclass
+from decimal import Decimal, InvalidOperation
+from pathlib import Path
+
+from ledgerband.tasks.errors import ExtractError, LedgerbandError
+from ledgerband.tasks.period import Period
+
+MANIFEST_FIELDS = ("period", "institution", "file", "sha256", "row_count", "credit_total", "debit_total")
+_DECIMAL_TEXT = re.compile(r"^-?\d+(\.\d+)?$")
+
+
+@dataclass(frozen=True)
+class Manifest:
+    path: Path
+    period: Period
+    institution: str
+    file: str
+    sha256: str
+    row_count: int
+    credit_total: Decimal
+    debit_total: Decimal
+
+    @property
+    def extract_path(self) -> Path:
+        return self.path.parent / self.file
+
+
+def read_manifest(path: Path) -> Manifest:
+    """Parse and check one control manifest; every problem names the manifest file."""
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise ExtractError(f"manifest {path}: cannot be read as JSON ({exc})") from exc
+    if not isinstance(data, dict):
+        raise ExtractError(f"manifest {path}: expected a JSON object")
+    missing = [k for k in MANIFEST_FIELDS if k not in data]
+    if missing:
+        raise ExtractError(f"manifest {path}: missing field(s) {', '.join(missing)}")
+    if not isinstance(data["row_count"], int) or data["row_count"] < 0:
+        raise ExtractError(
+            f"manifest {path}: row_count must be a non-negative integer, got {data['row_count']!r}"
+        )
+    totals = {}
+    for key in ("credit_total", "debit_total"):
+        text = data[key]
+        if not isinstance(text, str) or not _DECIMAL_TEXT.match(text):
+            raise ExtractError(
+                f'manifest {path}: {key} must be a decimal string like "1234.56", got {text!r}'
+            )
+        try:
+            totals[key] = Decimal(text)
+        except InvalidOperation as exc:  # pragma: no cover - regex already guards
+            raise ExtractError(f"manifest {path}: {key} {text!r} is not a decimal") from exc
+    if not re.fullmatch(r"[0-9a-f]{64}", str(data["sha256"]).lower()):
+        raise ExtractError(f"manifest {path}: sha256 must be 64 hex digits")
+    try:
+        period = Period.parse(str(data["period"]))
+    except LedgerbandError as exc:
+        raise ExtractError(f"manifest {path}: field period: {exc}") from exc
+    if Path(data["file"]).name != data["file"]:
+        raise ExtractError(
+            f"manifest {path}: file must be a bare file name beside the manifest, got {data['file']!r}"
+        )
+    return Manifest(
+        path=path,
+        period=period,
+        institution=str(data["institution"]),
+        file=data["file"],
+        sha256=str(data["sha256"]).lower(),
+        row_count=data["row_count"],
+        credit_total=totals["credit_total"],
+        debit_total=totals["debit_total"],
+    )
+
+
+def find_manifests(landing_dir: Path, period: Period) -> list[Manifest]:
+    """The manifests in `<landing_dir>/<period>/`, each checked to belong to that period."""
+    folder = Path(landing_dir) / str(period)
+    if not folder.is_dir():
+        raise ExtractError(f"no landing folder for period {period}: expected {folder}")
+    manifests = [read_manifest(p) for p in sorted(folder.glob("*.manifest.json"))]
+    if not manifests:
+        raise ExtractError(
+            f"no manifest (*.manifest.json) in {folder}: every extract needs its control manifest"
+        )
+    for m in manifests:
+        if m.period != period:
+            raise ExtractError(
+                f"manifest {m.path}: says period {m.period}, but it lies in the folder for {period}"
+            )
+        if not m.extract_path.is_file():
+            raise ExtractError(f"manifest {m.path}: names file {m.file}, which is not in {folder}")
+    return manifests
+
+
+def manifests_to_load(
+    landing_dir: Path, periods: Iterable[Period], accepted_periods: set[Period]
+) -> list[Path]:
+    """Manifests of every period in `periods` that has a landing folder.
+
+    A period whose folder is gone is fine once it has an accepted extract (landing folders are often
+    cleaned after loading); otherwise its absence is an error naming the folder looked for.
+    """
+    paths: list[Path] = []
+    for period in periods:
+        if not (Path(landing_dir) / str(period)).is_dir() and period in accepted_periods:
+            continue
+        paths.extend(m.path for m in find_manifests(landing_dir, period))
+    return paths
