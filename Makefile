@@ -23,18 +23,21 @@ venv: $(STAMP) ## create or refresh .venv from pyproject.toml
 demo: venv ## install, generate demo extracts, run the monthly flow, write the report
 	$(BIN)/ledgerband demo
 
-test: venv ## run the default test suite (unit, sql, reference, integration; no benchmarks)
+test: venv ## lint, then run the default test suite (unit, sql, reference, integration; no benchmarks)
+	@$(MAKE) --no-print-directory lint
 	$(BIN)/python -m pytest
 
 bench: venv ## benchmark the monthly flow on a larger synthetic bank (BENCH_CUSTOMERS=20000 by default)
 	$(BIN)/python -m pytest tests/bench -m bench -s -p no:cacheprovider
 
-lint: venv ## ruff (style, imports, bugbear)
+lint: venv ## ruff (style, imports, bugbear) and sqlfluff (the DuckDB SQL under warehouse/)
 	$(BIN)/ruff check flows tasks tests
+	$(BIN)/sqlfluff lint warehouse
 
-format: venv ## format and sort imports
+format: venv ## format and sort imports; fix the SQL layout (review the diff: `git diff warehouse`)
 	$(BIN)/ruff check --fix --select I flows tasks tests
 	$(BIN)/ruff format flows tasks tests
+	$(BIN)/sqlfluff fix warehouse
 
 clean: ## remove the local state folder (warehouse, published copy, reports, demo files)
 	rm -rf .ledgerband

@@ -44,7 +44,7 @@ class PublishResult:
 def insert_from_file(con: duckdb.DuckDBPyConnection, table: str, name: str, params: dict) -> None:
     """Append the rows of `warehouse/sql/published/<name>.sql` to `table` (parameters bound)."""
     model = sql_model("published", name)
-    con.execute(f"insert into {table}\n{model.query}", model.params(params))
+    con.execute(f"insert into {table} by name\n{model.query}", model.params(params))
 
 
 def publish_snapshot(con: duckdb.DuckDBPyConnection, ctx: RunContext, model_version: str) -> PublishResult:

@@ -89,7 +89,13 @@ create table if not exists quarantine.ledger_lines (
 -- Periods per year: weekly 365.25/7, fortnightly 365.25/14, semi-monthly 24, four-weekly 365.25/28,
 -- monthly 12.
 create or replace table ref.pay_frequencies as
-select * from (values
+select
+    t.frequency,
+    t.min_gap_days,
+    t.max_gap_days,
+    t.periods_per_year
+from (
+    values
     ('weekly', 5.0, 9.0, 365.25 / 7),
     ('fortnightly', 12.0, 14.5, 365.25 / 14),
     ('semi_monthly', 15.0, 18.0, 24.0),
@@ -185,7 +191,9 @@ create table if not exists published.band_summary_history (
 
 -- Readers see only the current snapshot; publishing moves `is_current` inside one transaction.
 create or replace view published.income_bands as
-select h.* exclude (published_at), h.published_at
+select
+    h.* exclude (h.published_at),
+    h.published_at
 from published.income_bands_history as h
 inner join published.snapshots as s on s.run_id = h.run_id and s.is_current;
 

@@ -36,13 +36,18 @@ spending as (
 ),
 
 balances as (
-    select customer_id, median(balance_after)::double as median_balance
+    select
+        customer_id,
+        median(balance_after)::double as median_balance
     from postings
     group by customer_id
 ),
 
 region_counts as (
-    select customer_id, merchant_region, count(*) as debit_count
+    select
+        customer_id,
+        merchant_region,
+        count(*) as debit_count
     from postings
     where direction = 'DBIT' and merchant_region is not null
     group by all
@@ -50,9 +55,11 @@ region_counts as (
 
 top_region as (
     -- Most frequent merchant region; ties go to the alphabetically first region, so reruns agree.
-    select customer_id, merchant_region as top_merchant_region
+    select
+        customer_id,
+        merchant_region as top_merchant_region
     from region_counts
-    qualify row_number() over (partition by customer_id order by debit_count desc, merchant_region) = 1
+    qualify row_number() over (partition by customer_id order by debit_count desc, merchant_region asc) = 1
 ),
 
 final as (
@@ -61,9 +68,9 @@ final as (
         customers.home_region,
         customers.sex,
         date_diff('year', customers.birth_date, $window_end::date)
-            - case
-                when strftime(customers.birth_date, '%m-%d') > strftime($window_end::date, '%m-%d') then 1 else 0
-            end as age_years,
+        - case
+            when strftime(customers.birth_date, '%m-%d') > strftime($window_end::date, '%m-%d') then 1 else 0
+        end as age_years,
         coalesce(spending.debit_count, 0) as debit_count,
         coalesce(spending.debit_count, 0) / ((($window_end::date - $window_start::date) + 1) / 7.0)
             as debits_per_week,

@@ -17,8 +17,13 @@ payroll_credits as (
 ),
 
 stream_typical as (
-    select customer_id, payer_id, median(amount) as typical_amount, count(*)::bigint as all_payment_count,
-        sum(amount) as total_paid, max(booking_date) as last_any_pay_date
+    select
+        customer_id,
+        payer_id,
+        median(amount) as typical_amount,
+        count(*)::bigint as all_payment_count,
+        sum(amount) as total_paid,
+        max(booking_date) as last_any_pay_date
     from payroll_credits
     group by all
 ),
@@ -26,8 +31,13 @@ stream_typical as (
 regular_credits as (
     select payroll_credits.*
     from payroll_credits
-    inner join stream_typical using (customer_id, payer_id)
-    where payroll_credits.amount between 0.6 * stream_typical.typical_amount and 1.6 * stream_typical.typical_amount
+    inner join stream_typical
+        on
+            stream_typical.customer_id = payroll_credits.customer_id
+            and stream_typical.payer_id = payroll_credits.payer_id
+    where
+        payroll_credits.amount
+        between 0.6 * stream_typical.typical_amount and 1.6 * stream_typical.typical_amount
 ),
 
 sequenced as (
@@ -65,7 +75,10 @@ matched as (
         freq.periods_per_year,
         freq.max_gap_days
     from streams
-    inner join stream_typical using (customer_id, payer_id)
+    inner join stream_typical
+        on
+            stream_typical.customer_id = streams.customer_id
+            and stream_typical.payer_id = streams.payer_id
     left join ref.pay_frequencies as freq
         on streams.median_gap_days between freq.min_gap_days and freq.max_gap_days
 ),
@@ -86,7 +99,7 @@ classified as (
             abs(payment_count - ((last_pay_date - first_pay_date) * periods_per_year / 365.25 + 1)) <= 0.5
                 as expected_ok
         from matched
-    )
+    ) as rhythm_check
 ),
 
 final as (

@@ -12,7 +12,9 @@ snapshot as (
 ),
 
 regions as (
-    select customer_id, home_region
+    select
+        customer_id,
+        home_region
     from features.customer
 ),
 

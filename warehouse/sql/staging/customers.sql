@@ -2,8 +2,9 @@
 -- Grain: one row per customer_id. Key: customer_id.
 -- Reads: raw.customers, ops.loads.
 -- The customer reference file most recently handed in is the current one (a file sent again is not
--- loaded twice but becomes current again); a customer listed twice in it keeps the later line. sex and birth_date are protected attributes: kept for error-by-group
--- analysis, never model features unless settings allow it after review.
+-- loaded twice but becomes current again); a customer listed twice in it keeps the later line. sex and
+-- birth_date are protected attributes: kept for error-by-group analysis, never model features unless
+-- settings allow it after review.
 
 with
 
@@ -16,10 +17,10 @@ latest_load as (
 ),
 
 lines as (
-    select raw.*
-    from raw.customers as raw
-    inner join latest_load on latest_load.load_id = raw.load_id
-    where raw.customer_id is not null
+    select records.*
+    from raw.customers as records
+    inner join latest_load on latest_load.load_id = records.load_id
+    where records.customer_id is not null
 ),
 
 final as (

@@ -8,13 +8,17 @@
 with
 
 accepted_loads as (
-    select load_id, loaded_at
+    select
+        load_id,
+        loaded_at
     from ops.loads
     where dataset = 'ledger' and status = 'accepted'
 ),
 
 lines as (
-    select parsed.*, accepted_loads.loaded_at
+    select
+        parsed.*,
+        accepted_loads.loaded_at
     from staging.ledger_lines_parsed as parsed
     inner join accepted_loads on accepted_loads.load_id = parsed.load_id
 ),
