@@ -51,10 +51,14 @@ class RunContext:
     def customers_file(self) -> Path:
         return self.landing_dir / "customers.csv"
 
-    def window_params(self) -> dict:
-        """Bound parameters of the window-scoped SQL files."""
+    def layer_params(self) -> dict:
+        """Bound parameters of the layer SQL files (each file binds the ones it uses)."""
+        payroll = self.settings.payroll
         return {
             "window_start": self.window.start,
             "window_end": self.window.end,
             "large_debit_threshold": self.settings.features.large_debit_threshold,
+            "min_payer_customers": payroll.min_payer_customers,
+            "max_missed_runs": payroll.max_missed_runs,
+            "due_grace_days": payroll.due_grace_days,
         }

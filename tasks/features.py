@@ -6,6 +6,7 @@ from dataclasses import dataclass
 
 import duckdb
 from ledgerband.tasks import loads
+from ledgerband.tasks.business_calendar import write_business_calendar, write_pay_frequencies
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.warehouse import build_layers, open_warehouse
@@ -35,9 +36,11 @@ def check_window_loaded(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> None
 
 
 def build_features(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> FeatureBuild:
-    """Rebuild every layer table for the window ending at the run's period."""
+    """Rebuild the reference tables from settings, then every layer table for the run's window."""
     check_window_loaded(con, ctx)
-    return FeatureBuild(build_layers(con, ctx.window_params()))
+    write_pay_frequencies(con, ctx.settings)
+    write_business_calendar(con, ctx.window, ctx.settings.payroll)
+    return FeatureBuild(build_layers(con, ctx.layer_params()))
 
 
 @task(name="build-features", cache_policy=NO_CACHE)

@@ -96,6 +96,51 @@ class BandSettings(_Section):
         return v
 
 
+class PayrollSettings(_Section):
+    """How pay credits become a salary label (intermediate.payroll_credits, intermediate.salary_streams)."""
+
+    holiday_country: str = ""
+    """ISO 3166-1 alpha-2 code of the institution's country for public holidays (the `holidays` package); empty: none."""
+    holidays: tuple[str, ...] = ("01-01", "03-14", "06-23", "10-05", "12-25", "12-26")
+    """Further holidays: MM-DD every year, or YYYY-MM-DD once."""
+    annualisation: str = Field("julian_year", pattern="^(julian_year|pay_periods)$")
+    """julian_year: weekly x 365.25/7, fortnightly x 365.25/14, four-weekly x 365.25/28; pay_periods: 52/26/13."""
+    max_missed_runs: int = Field(1, ge=0, le=3)
+    due_grace_days: int = Field(2, ge=0, le=10)
+    min_payer_customers: int = Field(3, ge=1)
+    """An uncoded payer counts as an employer when it pays at least this many customers (or codes salary)."""
+
+    @field_validator("holidays")
+    @classmethod
+    def _dates(cls, v: tuple[str, ...]) -> tuple[str, ...]:
+        from datetime import date
+
+        for text in v:
+            try:
+                date.fromisoformat(text if len(text) == 10 else f"2000-{text}")
+            except ValueError as exc:
+                raise ValueError(f"payroll.holidays entry {text!r} is not MM-DD or YYYY-MM-DD") from exc
+        return v
+
+    def periods_per_year(self) -> dict[str, float]:
+        """Pay periods per year for each frequency, by the configured convention."""
+        cycles = (
+            {"weekly": 365.25 / 7, "fortnightly": 365.25 / 14, "four_weekly": 365.25 / 28}
+            if self.annualisation == "julian_year"
+            else {"weekly": 52.0, "fortnightly": 26.0, "four_weekly": 13.0}
+        )
+        return {**cycles, "semi_monthly": 24.0, "monthly": 12.0}
+
+
+class LabelSettings(_Section):
+    """The label gate: a broken payroll feed stops the run instead of publishing."""
+
+    min_labelled_share: float = Field(0.10, ge=0, le=1)
+    max_irregular_share: float = Field(0.20, ge=0, le=1)
+    max_coded_payroll_drop: float = Field(0.50, ge=0, le=1)
+    max_median_label_change: float = Field(0.15, ge=0)
+
+
 class FeatureSettings(_Section):
     window_months: int = Field(3, ge=1, le=24)
     large_debit_threshold: float = Field(100.0, gt=0)
@@ -129,6 +174,8 @@ class Settings(BaseSettings):
     train: TrainSettings = TrainSettings()
     bands: BandSettings = BandSettings()
     features: FeatureSettings = FeatureSettings()
+    payroll: PayrollSettings = PayrollSettings()
+    labels: LabelSettings = LabelSettings()
     demo: DemoSettings = DemoSettings()
 
     @classmethod

@@ -4,7 +4,7 @@ SQL files ship inside the package (`ledgerband.warehouse`) and are read with imp
 installed wheel finds them without a checkout. Each layer file opens with a header that declares what it
 builds from:
 
-    -- Reads: staging.transactions, ref.pay_frequencies.
+    -- Reads: staging.transactions, ref.business_calendar.
     -- Materialized: view            (optional; default: table)
 
 The build order of the layers is derived from those declarations, never written down by hand.

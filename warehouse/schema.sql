@@ -79,29 +79,28 @@ create table if not exists quarantine.ledger_lines (
     quarantined_at timestamp not null
 );
 
--- Pay frequencies and how many pay periods a year each means, classified by the median gap in days
--- between regular pay dates (bounds inclusive). Pay tied to a weekday (weekly, fortnightly, four-weekly)
--- keeps exact 7/14/28-day gaps, a holiday moving one date by a day at most shifts the median by half a
--- day. Pay tied to a day of the month (semi-monthly, monthly) follows month lengths and weekend moves, so
--- its gaps wander: a last-business-day salary across February can show gaps of 29 and 28 (median 28.5),
--- which is why monthly starts at 28.5 and four-weekly ends at 28. A median of whole-day gaps is a whole or
--- half number, so no such value falls between adjacent ranges; 9.5-11.5 and 18.5-25.5 are irregular.
--- Periods per year: weekly 365.25/7, fortnightly 365.25/14, semi-monthly 24, four-weekly 365.25/28,
--- monthly 12.
-create or replace table ref.pay_frequencies as
-select
-    t.frequency,
-    t.min_gap_days,
-    t.max_gap_days,
-    t.periods_per_year
-from (
-    values
-    ('weekly', 5.0, 9.0, 365.25 / 7),
-    ('fortnightly', 12.0, 14.5, 365.25 / 14),
-    ('semi_monthly', 15.0, 18.0, 24.0),
-    ('four_weekly', 26.0, 28.0, 365.25 / 28),
-    ('monthly', 28.5, 35.0, 12.0)
-) as t (frequency, min_gap_days, max_gap_days, periods_per_year);
+-- Pay periods per year of each pay frequency, rewritten from settings (payroll.annualisation) before the
+-- layers are built: weekly 365.25/7, fortnightly 365.25/14, four-weekly 365.25/28 (a Julian year of
+-- 365.25 days), or the payroll convention 52/26/13; semi-monthly 24, monthly 12.
+create or replace table ref.pay_frequencies (
+    frequency varchar primary key,
+    periods_per_year double not null,
+    convention varchar not null
+);
+
+-- The institution's business calendar around the feature window, rewritten before the layers are built
+-- (ledgerband.tasks.business_calendar): weekends and public holidays are not business days; pay due on
+-- one lands on the business day before or after it.
+create table if not exists ref.business_calendar (
+    day date primary key,
+    is_business_day boolean not null,
+    prev_business_day date not null,       -- latest business day on or before day
+    next_business_day date not null,       -- earliest business day on or after day
+    iso_weekday integer not null,          -- 1 Monday .. 7 Sunday
+    day_of_month integer not null,
+    days_in_month integer not null,
+    month_index integer not null           -- year * 12 + month - 1
+);
 
 -- The band scheme in force, rewritten from settings at every publish. Bands are half-open [lower, upper).
 create table if not exists ref.income_bands (

@@ -96,3 +96,31 @@ def every(start: date, days: int, count: int) -> list[date]:
 
 
 WINDOW = {"window_start": date(2026, 8, 1), "window_end": date(2026, 10, 31), "large_debit_threshold": 100.0}
+
+
+def build_salary(con, window: dict = WINDOW, **payroll) -> None:
+    """Build the salary layers for `window` with default payroll settings (overridden by `payroll`)."""
+    from ledgerband.tasks.business_calendar import write_business_calendar, write_pay_frequencies
+    from ledgerband.tasks.period import Period
+    from ledgerband.tasks.settings import Settings
+    from ledgerband.tasks.warehouse import run_sql_file
+
+    settings = Settings(payroll=payroll)
+    write_pay_frequencies(con, settings)
+    start, end = window["window_start"], window["window_end"]
+    months = (end.year - start.year) * 12 + end.month - start.month + 1
+    write_business_calendar(con, Period.of(end).window(months), settings.payroll)
+    params = {
+        **window,
+        "min_payer_customers": settings.payroll.min_payer_customers,
+        "max_missed_runs": settings.payroll.max_missed_runs,
+        "due_grace_days": settings.payroll.due_grace_days,
+    }
+    for layer, name in (
+        ("intermediate", "payroll_credits"),
+        ("intermediate", "pay_schedule_fits"),
+        ("intermediate", "salary_streams"),
+        ("features", "customer_label"),
+        ("features", "customer_salary"),
+    ):
+        run_sql_file(con, layer, name, params)

@@ -1,25 +1,24 @@
 -- features.customer_salary
--- Grain: one row per customer with at least one current, classified payroll stream (the model's label).
--- Key: customer_id.
--- Reads: intermediate.salary_streams.
--- Several employers add up. Customers without such a stream have no row: the model estimates them.
+-- Grain: one row per customer with a salary label (the model's target). Key: customer_id.
+-- Reads: features.customer_label.
+-- The labelled customers of features.customer_label, with what the model learns from: annual net pay
+-- received here (after tax and deductions, excluding bonuses).
 
 with
 
-streams as (
-    select *
-    from intermediate.salary_streams
-    where is_current and annual_salary is not null
+labels as (
+    select * from features.customer_label
 ),
 
 final as (
     select
-        customer_id,
-        round(sum(annual_salary), 2) as annual_salary,
-        count(*)::bigint as stream_count,
-        arg_max(pay_frequency, annual_salary) as main_pay_frequency
-    from streams
-    group by customer_id
+        labels.customer_id,
+        labels.annual_salary,
+        labels.stream_count,
+        labels.main_pay_frequency,
+        labels.label_confidence
+    from labels
+    where labels.label_status = 'labelled'
 )
 
 select * from final

@@ -1,10 +1,16 @@
 -- intermediate.payroll_credits
--- Grain: one row per (customer_id, payer_id, booking_date) of payroll credits. Key: those three.
+-- Grain: one row per (customer_id, payer_id, booking_date) of pay credits. Key: those three.
 -- Reads: staging.transactions.
--- Parameters: $window_start, $window_end (dates, inclusive).
--- A credit is payroll when the payer marked it as salary: ISO 20022 purpose code SALA or bank
--- transaction sub-family SALA. Credits from one payer on one day are one payment: a salary split in two,
--- or paid with a same-day extra, is one payment.
+-- Parameters: $window_start, $window_end (dates, inclusive), $min_payer_customers.
+-- A credit is pay when the payer coded it as salary (ISO 20022 purpose SALA, or bank transaction
+-- sub-family SALA: is_coded), or when it is an uncoded received credit transfer from a payer that is an
+-- employer: one that codes salary to someone in the window, or that sends such uncoded transfers to at
+-- least $min_payer_customers customers (a lodger, a relative or the customer's own account elsewhere pays
+-- one customer). Not pay: anything with another purpose code (pension, benefit, interest, rent, refund…),
+-- card and cash credits, internal book transfers, and transfers from the customer's own accounts here.
+-- Whether uncoded pay arrives on a schedule is decided by intermediate.salary_streams.
+-- Credits from one payer on one day are one payment (a salary split in two, or paid with a same-day
+-- bonus); credit_count keeps how many there were.
 
 with
 
@@ -14,10 +20,56 @@ transactions as (
     where booking_date between $window_start and $window_end
 ),
 
-coded as (
-    select *
+own_accounts as (
+    select distinct
+        customer_id,
+        account_id
+    from staging.transactions
+),
+
+credits as (
+    select
+        transactions.customer_id,
+        transactions.counterparty_id,
+        transactions.booking_date,
+        transactions.amount,
+        coalesce(transactions.purpose_code = 'SALA' or transactions.btc_subfamily = 'SALA', false)
+            as is_coded,
+        transactions.purpose_code is null
+        and transactions.btc_family = 'RCDT'
+        and transactions.btc_subfamily <> 'BOOK'
+        and transactions.counterparty_id is not null
+        and own_accounts.account_id is null as is_uncoded_transfer
     from transactions
-    where direction = 'CRDT' and (purpose_code = 'SALA' or btc_subfamily = 'SALA')
+    left join own_accounts
+        on
+            own_accounts.customer_id = transactions.customer_id
+            and own_accounts.account_id = transactions.counterparty_id
+    where transactions.direction = 'CRDT'
+),
+
+payers as (
+    select
+        counterparty_id,
+        bool_or(is_coded) as codes_salary,
+        count(distinct customer_id) filter (where is_uncoded_transfer) as uncoded_customer_count
+    from credits
+    where counterparty_id is not null
+    group by counterparty_id
+),
+
+pay as (
+    select
+        credits.*,
+        case when credits.is_coded then 'coded' else 'recurrence' end as found_by
+    from credits
+    left join payers on payers.counterparty_id = credits.counterparty_id
+    where
+        credits.is_coded
+        or (
+            credits.is_uncoded_transfer
+            and (payers.codes_salary or payers.uncoded_customer_count >= $min_payer_customers)
+        )
 ),
 
 final as (
@@ -25,9 +77,11 @@ final as (
         customer_id,
         coalesce(counterparty_id, 'payer not given') as payer_id,
         booking_date,
-        sum(amount) as amount
-    from coded
-    group by all
+        sum(amount) as amount,
+        count(*)::bigint as credit_count,
+        bool_or(is_coded) as is_coded
+    from pay
+    group by customer_id, coalesce(counterparty_id, 'payer not given'), booking_date
 )
 
 select * from final

@@ -1,124 +1,177 @@
 -- intermediate.salary_streams
--- Grain: one row per (customer_id, payer_id) stream of payroll credits inside the window.
+-- Grain: one row per (customer_id, payer_id) stream of pay credits inside the window.
 -- Key: customer_id, payer_id.
--- Reads: intermediate.payroll_credits, ref.pay_frequencies.
--- Parameters: $window_end (date, inclusive).
--- Regular payments are those between 60% and 160% of the stream's median amount (our choice: a pay rise
--- stays regular, a bonus or a small top-up does not); only they set the frequency and the pay amount.
--- Pay frequency comes from the median gap in days between consecutive regular pay dates (robust to one
--- date moved by a weekend or holiday). The pay amount is the median of the latest three regular
--- payments, so a pay rise takes over after two payments. A stream is current when its last payment
--- (of any amount) is no older than its own longest expected gap (plus a week) at the window's end.
+-- Reads: intermediate.payroll_credits, intermediate.pay_schedule_fits.
+-- Parameters: $window_end (date, inclusive), $due_grace_days.
+-- Each stream takes the pay calendar that explains its payments best: fewest missed runs plus extras,
+-- then a steady amount over the explained payments, then fewest payments moved off their nominal day.
+-- A stream is
+--   classified   one calendar wins, and no calendar of another frequency explains it as well;
+--   ambiguous    calendars of different frequencies explain it equally well (e.g. two payments 14 days
+--                apart on the 1st and 15th: fortnightly or semi-monthly), or only a four-weekly calendar
+--                with too few payments to tell it from monthly: no label is better than a wrong one;
+--   unclassified no calendar explains it.
+-- A classified stream is current when its next payment was not due by the window's end (plus
+-- $due_grace_days for late postings): at the window's end a missed run cannot be told from leaving, and
+-- when one employer stops and another starts, only the later one is current. Other streams are current
+-- when paid within the last 35 days (+ grace): an unexplained stream that is still paying.
+-- The pay amount is the median of the last three explained payments (a pay rise takes over after two).
+-- Bonuses are reported, never annualised: payments the calendar leaves over, and the part of an
+-- explained payment over 1.5 times the pay amount, above the pay amount (a bonus paid on the pay day).
+-- Label: net pay received (after tax and deductions), excluding bonuses, per year.
 
 with
 
-payroll_credits as (
+credits as (
     select * from intermediate.payroll_credits
 ),
 
-stream_typical as (
+fits as (
     select
-        customer_id,
-        payer_id,
-        median(amount) as typical_amount,
-        count(*)::bigint as all_payment_count,
-        sum(amount) as total_paid,
-        max(booking_date) as last_any_pay_date
-    from payroll_credits
-    group by all
-),
-
-regular_credits as (
-    select payroll_credits.*
-    from payroll_credits
-    inner join stream_typical
-        on
-            stream_typical.customer_id = payroll_credits.customer_id
-            and stream_typical.payer_id = payroll_credits.payer_id
-    where
-        payroll_credits.amount
-        between 0.6 * stream_typical.typical_amount and 1.6 * stream_typical.typical_amount
-),
-
-sequenced as (
-    select
-        *,
-        booking_date - lag(booking_date) over (
-            partition by customer_id, payer_id order by booking_date
-        ) as gap_days,
-        row_number() over (
-            partition by customer_id, payer_id order by booking_date desc, amount desc
-        ) as recency_rank
-    from regular_credits
+        pay_schedule_fits.*,
+        -- a missed run and a payment left over weigh the same: three payments on the 15th and one on the
+        -- 1st are monthly pay and a bonus, or semi-monthly pay with a run missed
+        pay_schedule_fits.missed_runs + pay_schedule_fits.extra_count as misfit
+    from intermediate.pay_schedule_fits
 ),
 
 streams as (
     select
-        customer_id,
-        payer_id,
+        credits.customer_id,
+        credits.payer_id,
         count(*)::bigint as payment_count,
-        min(booking_date) as first_pay_date,
-        max(booking_date) as last_pay_date,
-        median(gap_days) as median_gap_days,
-        median(amount) filter (where recency_rank <= 3) as pay_amount
-    from sequenced
-    group by all
+        sum(credits.amount) as total_paid,
+        max(credits.booking_date) as last_any_pay_date,
+        bool_or(credits.is_coded) as is_coded
+    from credits
+    group by credits.customer_id, credits.payer_id
 ),
 
-matched as (
+ranked as (
     select
-        streams.*,
-        stream_typical.all_payment_count - streams.payment_count as extra_payment_count,
-        stream_typical.total_paid,
-        stream_typical.last_any_pay_date,
-        coalesce(freq.frequency, 'irregular') as pay_frequency,
-        freq.periods_per_year,
-        freq.max_gap_days
-    from streams
-    inner join stream_typical
+        fits.*,
+        row_number() over (
+            partition by fits.customer_id, fits.payer_id
+            order by
+                fits.misfit asc, fits.is_steady desc, fits.is_choosable desc, fits.moved_count asc,
+                fits.pattern asc, fits.pattern_param asc
+        ) as fit_rank
+    from fits
+),
+
+lowest_misfit as (
+    select
+        fits.customer_id,
+        fits.payer_id,
+        min(fits.misfit) as best_misfit
+    from fits
+    group by fits.customer_id, fits.payer_id
+),
+
+best as (
+    -- the best misfit, and whether a calendar with it explains a steady amount (then the unsteady ones,
+    -- which fold a bonus into the calendar, do not compete)
+    select
+        fits.customer_id,
+        fits.payer_id,
+        lowest_misfit.best_misfit,
+        bool_or(fits.is_steady) as best_is_steady
+    from fits
+    inner join lowest_misfit
         on
-            stream_typical.customer_id = streams.customer_id
-            and stream_typical.payer_id = streams.payer_id
-    left join ref.pay_frequencies as freq
-        on streams.median_gap_days between freq.min_gap_days and freq.max_gap_days
+            lowest_misfit.customer_id = fits.customer_id
+            and lowest_misfit.payer_id = fits.payer_id
+            and lowest_misfit.best_misfit = fits.misfit
+    group by fits.customer_id, fits.payer_id, lowest_misfit.best_misfit
+),
+
+rivals as (
+    select
+        ranked.customer_id,
+        ranked.payer_id,
+        count(distinct ranked.frequency) as frequency_count
+    from ranked
+    inner join best
+        on
+            best.customer_id = ranked.customer_id
+            and best.payer_id = ranked.payer_id
+            and best.best_misfit = ranked.misfit
+            and best.best_is_steady = ranked.is_steady
+    group by ranked.customer_id, ranked.payer_id
+),
+
+chosen as (
+    select ranked.*
+    from ranked
+    where ranked.fit_rank = 1
 ),
 
 classified as (
-    -- The rhythm must also explain how many payments there were: over the span from first to last
-    -- regular payment it predicts span x periods_per_year / 365.25 + 1 of them. A stream off by more
-    -- than half a payment (an extra payment on another day can fake a shorter median gap) is
-    -- irregular: no label, and the model estimates the customer instead of a doubled salary.
     select
-        * replace (
-            case when expected_ok then pay_frequency else 'irregular' end as pay_frequency,
-            case when expected_ok then periods_per_year end as periods_per_year
-        )
-    from (
-        select
-            *,
-            abs(payment_count - ((last_pay_date - first_pay_date) * periods_per_year / 365.25 + 1)) <= 0.5
-                as expected_ok
-        from matched
-    ) as rhythm_check
+        streams.*,
+        chosen.pattern,
+        chosen.pattern_param,
+        chosen.frequency,
+        chosen.periods_per_year,
+        chosen.explained_count,
+        chosen.extra_count,
+        chosen.missed_runs,
+        chosen.first_pay_date,
+        chosen.last_pay_date,
+        chosen.next_due_date,
+        chosen.recent_amount,
+        chosen.explained_amount,
+        case
+            when chosen.customer_id is null then 'unclassified'
+            when rivals.frequency_count > 1 or not chosen.is_choosable then 'ambiguous'
+            else 'classified'
+        end as status,
+        coalesce(chosen.same_day_bonus_amount, 0) as same_day_bonus_amount
+    from streams
+    left join chosen
+        on chosen.customer_id = streams.customer_id and chosen.payer_id = streams.payer_id
+    left join rivals
+        on rivals.customer_id = streams.customer_id and rivals.payer_id = streams.payer_id
 ),
 
 final as (
     select
         customer_id,
         payer_id,
+        case when is_coded then 'coded' else 'recurrence' end as found_by,
+        status,
+        case when status = 'classified' then pattern end as pattern,
+        case when status = 'classified' then pattern_param end as pattern_param,
+        case when status = 'classified' then frequency else 'irregular' end as pay_frequency,
+        case when status = 'classified' then periods_per_year end as periods_per_year,
         payment_count,
-        extra_payment_count,
+        coalesce(explained_count, 0) as payments_used,
+        coalesce(extra_count, payment_count) as extra_payment_count,
+        coalesce(missed_runs, 0) as missed_runs,
         first_pay_date,
         last_pay_date,
-        median_gap_days,
-        pay_frequency,
-        periods_per_year,
-        pay_amount::double as pay_amount,
-        total_paid::double as total_paid,
-        coalesce($window_end::date - last_any_pay_date <= max_gap_days + 7, false) as is_current,
+        last_any_pay_date,
+        next_due_date,
+        coalesce(
+            case
+                when status = 'classified' then next_due_date + $due_grace_days > $window_end::date
+                else last_any_pay_date >= $window_end::date - (35 + $due_grace_days)
+            end,
+            false
+        ) as is_current,
+        case when status = 'classified' then recent_amount::double end as pay_amount,
         case
-            when periods_per_year is not null then round(pay_amount::double * periods_per_year, 2)
-        end as annual_salary
+            when status = 'classified' then round(recent_amount::double * periods_per_year, 2)
+        end as annual_salary,
+        round(
+            (total_paid - coalesce(explained_amount, 0) + same_day_bonus_amount)::double, 2
+        ) as bonus_amount,
+        total_paid::double as total_paid,
+        case
+            when status <> 'classified' then null
+            when is_coded and missed_runs = 0 and extra_count = 0 and explained_count >= 3 then 'high'
+            else 'medium'
+        end as confidence
     from classified
 )
 

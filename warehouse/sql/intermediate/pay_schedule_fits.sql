@@ -1,0 +1,301 @@
+-- intermediate.pay_schedule_fits
+-- Grain: one row per (customer_id, payer_id, pattern, pattern_param): a pay calendar that explains at
+-- least two of a stream's payments one to one. Key: those four.
+-- Reads: intermediate.payroll_credits, ref.business_calendar, ref.pay_frequencies.
+-- Parameters: $max_missed_runs.
+-- A pay calendar names the nominal pay days; pay due on a weekend or holiday lands on the business day
+-- before or after it (ref.business_calendar), the same way every time for one employer. Calendars tried,
+-- each with every parameter the payments allow:
+--   monthly_day      day D of the month, 1..31 (past the month's end: its last day; D = 31 with pay moved
+--                    back is "the last business day")
+--   monthly_weekday  the N-th (1..4) or last given weekday of the month ("1-5" first Friday, "last-4")
+--   semi_monthly     two days a month, D1 and D2, 13 to 17 days apart ("1+15", "15+31")
+--   every_7/14/28    the same weekday every 7, 14 or 28 days (param: days since 2000-01-03 modulo k)
+-- A fit says how many payments the calendar explains, how many it leaves over (extras: bonuses, other
+-- one-offs), how many of its pay days between the first and the last explained payment had no payment
+-- (missed runs), and when the next payment falls due.
+
+with
+
+credits as (
+    select * from intermediate.payroll_credits
+),
+
+calendar as (
+    select * from ref.business_calendar
+),
+
+frequencies as (
+    select * from ref.pay_frequencies
+),
+
+landing as (
+    -- Where pay due on a day lands: that day when it is a business day, else the business day before it
+    -- (moved back) or after it (moved forward).
+    select
+        calendar.day as nominal_day,
+        calendar.prev_business_day as pay_day,
+        case when calendar.is_business_day then 0 else -1 end as moved
+    from calendar
+    union
+    select
+        calendar.day as nominal_day,
+        calendar.next_business_day as pay_day,
+        case when calendar.is_business_day then 0 else 1 end as moved
+    from calendar
+),
+
+month_day_params as (
+    select unnest(range(1, 32)) as day_param
+),
+
+monthly_day as (
+    select
+        'monthly_day' as pattern,
+        month_day_params.day_param::varchar as pattern_param,
+        'monthly' as frequency,
+        calendar.month_index as slot,
+        calendar.day as nominal_day
+    from calendar
+    inner join month_day_params
+        on calendar.day_of_month = least(month_day_params.day_param, calendar.days_in_month)
+),
+
+monthly_weekday as (
+    select
+        'monthly_weekday' as pattern,
+        ((calendar.day_of_month - 1) // 7 + 1)::varchar || '-' || calendar.iso_weekday::varchar
+            as pattern_param,
+        'monthly' as frequency,
+        calendar.month_index as slot,
+        calendar.day as nominal_day
+    from calendar
+    where calendar.day_of_month <= 28
+    union all
+    select
+        'monthly_weekday' as pattern,
+        'last-' || calendar.iso_weekday::varchar as pattern_param,
+        'monthly' as frequency,
+        calendar.month_index as slot,
+        calendar.day as nominal_day
+    from calendar
+    where calendar.day_of_month + 7 > calendar.days_in_month
+),
+
+semi_monthly_params as (
+    select
+        first_day.day_param as first_day,
+        second_day.day_param as second_day
+    from month_day_params as first_day
+    inner join month_day_params as second_day
+        on second_day.day_param - first_day.day_param between 13 and 17
+),
+
+semi_monthly as (
+    select
+        'semi_monthly' as pattern,
+        semi_monthly_params.first_day::varchar || '+' || semi_monthly_params.second_day::varchar
+            as pattern_param,
+        'semi_monthly' as frequency,
+        calendar.month_index * 2
+        + case
+            when calendar.day_of_month = least(semi_monthly_params.first_day, calendar.days_in_month) then 0
+            else 1
+        end as slot,
+        calendar.day as nominal_day
+    from calendar
+    inner join semi_monthly_params
+        on
+            calendar.day_of_month = least(semi_monthly_params.first_day, calendar.days_in_month)
+            or calendar.day_of_month = least(semi_monthly_params.second_day, calendar.days_in_month)
+),
+
+cycle_lengths as (
+    select
+        cycles.cycle_days,
+        cycles.frequency
+    from (values (7, 'weekly'), (14, 'fortnightly'), (28, 'four_weekly')) as cycles (cycle_days, frequency)
+),
+
+every_k_days as (
+    select
+        'every_' || cycle_lengths.cycle_days::varchar as pattern,
+        ((calendar.day - date '2000-01-03') % cycle_lengths.cycle_days)::varchar as pattern_param,
+        cycle_lengths.frequency,
+        (calendar.day - date '2000-01-03') // cycle_lengths.cycle_days as slot,
+        calendar.day as nominal_day
+    from calendar
+    cross join cycle_lengths
+),
+
+schedule as (
+    select * from monthly_day
+    union all
+    select * from monthly_weekday
+    union all
+    select * from semi_monthly
+    union all
+    select * from every_k_days
+),
+
+matched as (
+    select
+        credits.customer_id,
+        credits.payer_id,
+        schedule.pattern,
+        schedule.pattern_param,
+        schedule.frequency,
+        schedule.slot,
+        schedule.nominal_day,
+        landing.moved,
+        credits.booking_date,
+        credits.amount
+    from credits
+    inner join landing on landing.pay_day = credits.booking_date
+    inner join schedule on schedule.nominal_day = landing.nominal_day
+),
+
+ranked as (
+    select
+        matched.*,
+        row_number() over (
+            partition by matched.customer_id, matched.payer_id, matched.pattern, matched.pattern_param
+            order by matched.booking_date desc
+        ) as recency
+    from matched
+),
+
+stream_sizes as (
+    select
+        credits.customer_id,
+        credits.payer_id,
+        count(*)::bigint as payment_count
+    from credits
+    group by credits.customer_id, credits.payer_id
+),
+
+fits as (
+    select
+        ranked.customer_id,
+        ranked.payer_id,
+        ranked.pattern,
+        ranked.pattern_param,
+        any_value(ranked.frequency) as frequency,
+        count(distinct ranked.booking_date)::bigint as explained_count,
+        count(distinct ranked.slot)::bigint as slot_count,
+        count(*)::bigint as match_count,
+        count(*) filter (where ranked.moved <> 0)::bigint as moved_count,
+        -- an employer moves pay one way: back to the business day before, or forward to the one after
+        count(distinct ranked.moved) filter (where ranked.moved <> 0) as move_directions,
+        min(ranked.slot) as first_slot,
+        max(ranked.slot) as last_slot,
+        min(ranked.booking_date) as first_pay_date,
+        max(ranked.booking_date) as last_pay_date,
+        sum(ranked.amount) as explained_amount,
+        (max(ranked.amount) - min(ranked.amount)) / nullif(median(ranked.amount), 0) as amount_spread,
+        median(ranked.amount) filter (where ranked.recency <= 3) as recent_amount
+    from ranked
+    group by ranked.customer_id, ranked.payer_id, ranked.pattern, ranked.pattern_param
+),
+
+excess as (
+    -- an explained payment over 1.5 times the pay amount carries a bonus paid on the pay day: the part
+    -- above the pay amount
+    select
+        ranked.customer_id,
+        ranked.payer_id,
+        ranked.pattern,
+        ranked.pattern_param,
+        coalesce(
+            sum(ranked.amount - fits.recent_amount) filter (where ranked.amount > 1.5 * fits.recent_amount), 0
+        ) as same_day_bonus_amount
+    from ranked
+    inner join fits
+        on
+            fits.customer_id = ranked.customer_id
+            and fits.payer_id = ranked.payer_id
+            and fits.pattern = ranked.pattern
+            and fits.pattern_param = ranked.pattern_param
+    group by ranked.customer_id, ranked.payer_id, ranked.pattern, ranked.pattern_param
+),
+
+one_to_one as (
+    select
+        fits.*,
+        excess.same_day_bonus_amount,
+        stream_sizes.payment_count - fits.explained_count as extra_count,
+        fits.last_slot - fits.first_slot + 1 - fits.slot_count as missed_runs
+    from fits
+    inner join stream_sizes
+        on stream_sizes.customer_id = fits.customer_id and stream_sizes.payer_id = fits.payer_id
+    inner join excess
+        on
+            excess.customer_id = fits.customer_id
+            and excess.payer_id = fits.payer_id
+            and excess.pattern = fits.pattern
+            and excess.pattern_param = fits.pattern_param
+    -- every explained payment in one slot, every slot paid once, at least one gap to go by
+    where
+        fits.match_count = fits.explained_count
+        and fits.slot_count = fits.explained_count
+        and fits.explained_count >= 2
+        and fits.move_directions <= 1
+),
+
+next_due as (
+    select
+        one_to_one.customer_id,
+        one_to_one.payer_id,
+        one_to_one.pattern,
+        one_to_one.pattern_param,
+        min(calendar.next_business_day) as next_due_date
+    from one_to_one
+    inner join schedule
+        on
+            schedule.pattern = one_to_one.pattern
+            and schedule.pattern_param = one_to_one.pattern_param
+            and schedule.slot = one_to_one.last_slot + 1
+    inner join calendar on calendar.day = schedule.nominal_day
+    group by one_to_one.customer_id, one_to_one.payer_id, one_to_one.pattern, one_to_one.pattern_param
+),
+
+final as (
+    select
+        one_to_one.customer_id,
+        one_to_one.payer_id,
+        one_to_one.pattern,
+        one_to_one.pattern_param,
+        one_to_one.frequency,
+        frequencies.periods_per_year,
+        one_to_one.explained_count,
+        one_to_one.extra_count,
+        one_to_one.missed_runs,
+        one_to_one.moved_count,
+        one_to_one.first_pay_date,
+        one_to_one.last_pay_date,
+        next_due.next_due_date,
+        one_to_one.explained_amount,
+        one_to_one.recent_amount,
+        one_to_one.same_day_bonus_amount,
+        -- explained payments within 25% of each other: a steady amount, the mark of pay rather than of
+        -- a bonus folded into the calendar
+        coalesce(one_to_one.amount_spread <= 0.25, false) as is_steady,
+        -- Four-weekly pay is told from monthly pay only by three gaps that a monthly calendar cannot
+        -- explain; with fewer, the fit still competes (and makes the stream ambiguous) but is not chosen.
+        (one_to_one.frequency <> 'four_weekly' or one_to_one.explained_count >= 4) as is_choosable
+    from one_to_one
+    inner join frequencies on frequencies.frequency = one_to_one.frequency
+    left join next_due
+        on
+            next_due.customer_id = one_to_one.customer_id
+            and next_due.payer_id = one_to_one.payer_id
+            and next_due.pattern = one_to_one.pattern
+            and next_due.pattern_param = one_to_one.pattern_param
+    -- bonuses and one-offs are a minority of a stream's payments; a calendar that misses more than the
+    -- allowed pay runs is not the stream's calendar
+    where
+        one_to_one.missed_runs <= $max_missed_runs
+        and one_to_one.extra_count <= one_to_one.explained_count // 3
+)
+
+select * from final
