@@ -1,4 +1,5 @@
-"""The monthly run: ingest → validate (quality gate) → features → train → accuracy gate → publish → report."""
+"""The monthly run: ingest → validate (quality gate) → features → label gate → train → accuracy gate →
+publish → report."""
 
 from __future__ import annotations
 
@@ -12,6 +13,7 @@ from ledgerband.tasks.errors import GateStopped
 from ledgerband.tasks.features import FeatureBuild, build_features_task
 from ledgerband.tasks.gates import Decision
 from ledgerband.tasks.gates.accuracy import accuracy_gate_task
+from ledgerband.tasks.gates.labels import label_gate_task
 from ledgerband.tasks.gates.quality import quality_gate_task
 from ledgerband.tasks.ingest import find_extracts_task, ingest_customers_task, ingest_extract_task
 from ledgerband.tasks.loads import LoadResult
@@ -73,6 +75,7 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> RunResult:
         loaded = log.run("ingest", ingest, ctx, detail=lambda r: {x.source_file: x.status for x in r})
         quality = log.run("validate", validate, ctx, loaded, detail=lambda d: d.reason)
         log.run("features", features, ctx, detail=lambda b: b.row_counts)
+        log.run("label_gate", label_gate_task, ctx, detail=lambda d: d.reason)
         train = log.run(
             "train", train_task, ctx, detail=lambda t: {"champion": t.champion, "n_labelled": t.n_labelled}
         )

@@ -88,6 +88,7 @@ def test_every_stage_is_recorded_in_ops_runs(home, first_run):
         "ingest",
         "validate",
         "features",
+        "label_gate",
         "train",
         "accuracy_gate",
         "publish",
@@ -249,3 +250,46 @@ def test_estimates_for_customers_without_payroll_are_not_biased(home, first_run,
     con.close()
     assert t["customers_estimated"] >= 30
     assert abs(t["mean_error"]) < 0.10 * t["mean_true_income"]
+
+
+def test_a_month_whose_payroll_codes_vanish_is_stopped_by_the_label_gate(prefect_api, tmp_path, monkeypatch):
+    """A sender that stops coding salary (purpose SALA, sub-family SALA) in the run's month stops the run."""
+    import csv
+    import hashlib
+
+    from ledgerband.flows.monthly import monthly_run
+    from ledgerband.tasks.demo.generator import generate
+    from ledgerband.tasks.settings import get_settings
+
+    monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path / "state"))
+    get_settings.cache_clear()
+    s = get_settings()
+    files = generate(
+        s.demo_landing_dir, s.demo_answers_path, customers=300, months=3, end_period="2026-10", seed=5
+    )
+    last = files.extracts[-1]
+    with last.open(newline="") as f:
+        rows = list(csv.DictReader(f))
+    for row in rows:
+        if row["purpose_code"] == "SALA":
+            row["purpose_code"] = ""
+        if row["bank_txn_code"] == "PMNT/RCDT/SALA":
+            row["bank_txn_code"] = "PMNT/RCDT/DMCT"
+    with last.open("w", newline="") as f:
+        writer = csv.DictWriter(f, fieldnames=list(rows[0]), lineterminator="\n")
+        writer.writeheader()
+        writer.writerows(rows)
+    manifest = json.loads(files.manifests[-1].read_text())
+    manifest["sha256"] = hashlib.sha256(last.read_bytes()).hexdigest()
+    files.manifests[-1].write_text(json.dumps(manifest))
+
+    with pytest.raises(
+        GateStopped, match="labels gate stopped the run: salary-coded credits in the run's month fell 100.00%"
+    ):
+        monthly_run("2026-10", files.landing_dir)
+    state = tmp_path / "state"
+    assert _q(state, "select status from ops.runs") == [("stopped",)]
+    assert _q(state, "select gate, decision from published.decisions where decision = 'stop'") == [
+        ("labels", "stop")
+    ]
+    assert _q(state, "select count(*) from published.snapshots") == [(0,)]
