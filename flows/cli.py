@@ -13,10 +13,11 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from ledgerband.tasks.errors import LedgerbandError
-from ledgerband.tasks.runtime import configure_process_env
 from rich.console import Console
 from rich.table import Table
+
+from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.runtime import configure_process_env
 
 
 class DemoFormat(StrEnum):
@@ -96,8 +97,9 @@ def _quiet_expected_failures() -> None:
 
 
 def _settings():
-    from ledgerband.tasks.settings import get_settings
     from pydantic import ValidationError
+
+    from ledgerband.tasks.settings import get_settings
 
     try:
         return get_settings()
@@ -176,6 +178,33 @@ def demo(
         f"band accuracy {t['band_accuracy']:.1%}, within one band {t['within_one_band']:.1%}.",
         soft_wrap=True,
     )
+    _print_label_agreement(t["labels"])
+
+
+def _print_label_agreement(labels: dict) -> None:
+    """Salary labels against the demo's true net pay: right (within 2%), wrong, none; by pay calendar."""
+    s, e = labels["salaried"], labels["label_expected"]
+    out.print(
+        f"Salary labels vs true net pay (within 2%): of {s['customers']} salaried customers {s['right']:.1%} "
+        f"right, {s['wrong']:.1%} wrong, {s['none']:.1%} unlabelled; of the {e['customers']} whose pay shows "
+        f"its calendar {e['right']:.1%} right, {e['wrong']:.1%} wrong; {labels['without_current_pay_labelled']:.1%} "
+        f"of the {labels['without_current_pay']} customers without current pay labelled.",
+        soft_wrap=True,
+        highlight=False,
+    )
+    table = Table(title="Salary labels by pay calendar and by life event (salaried customers)")
+    for col in ("group", "customers", "right", "wrong", "unlabelled"):
+        table.add_column(col, justify="left" if col == "group" else "right")
+    for title, groups in (("calendar", labels["by_pattern"]), ("event", labels["by_life_event"])):
+        for name, g in sorted(groups.items(), key=lambda kv: -kv[1]["customers"]):
+            table.add_row(
+                f"{title}: {name}",
+                str(g["customers"]),
+                f"{g['right']:.1%}",
+                f"{g['wrong']:.1%}",
+                f"{g['none']:.1%}",
+            )
+    out.print(table)
 
 
 @app.command()

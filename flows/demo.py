@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
-from ledgerband.flows.monthly import RunResult, monthly_run
-from ledgerband.tasks.demo.generator import DemoFiles, generate
-from ledgerband.tasks.demo.truth import truth_check
-from ledgerband.tasks.settings import get_settings
-from ledgerband.tasks.warehouse import open_warehouse
 from prefect import flow, task
 from prefect.cache_policies import NO_CACHE
+
+from ledgerband.flows.monthly import RunResult, monthly_run
+from ledgerband.tasks.demo.generator import DemoFiles, generate
+from ledgerband.tasks.demo.truth import label_agreement, truth_check
+from ledgerband.tasks.settings import get_settings
+from ledgerband.tasks.warehouse import open_warehouse
 
 
 @task(name="generate-demo-extracts", cache_policy=NO_CACHE)
@@ -23,6 +24,7 @@ def generate_task(customers: int, months: int, end_period: str, seed: int, file_
         seed=seed,
         file_format=file_format,
         institution=s.demo.institution,
+        holidays=s.payroll.holidays,
     )
 
 
@@ -30,7 +32,10 @@ def generate_task(customers: int, months: int, end_period: str, seed: int, file_
 def truth_check_task(run_id: str) -> dict:
     s = get_settings()
     with open_warehouse(s.warehouse_path) as con:
-        return truth_check(con, s.demo_answers_path, run_id, s.bands.edges)
+        return {
+            **truth_check(con, s.demo_answers_path, run_id, s.bands.edges),
+            "labels": label_agreement(con, s.demo_answers_path),
+        }
 
 
 @flow(name="ledgerband-demo")

@@ -7,6 +7,9 @@ import uuid
 from dataclasses import dataclass
 from pathlib import Path
 
+from prefect import flow, get_run_logger
+from prefect.runtime import flow_run
+
 from ledgerband.tasks.alerts import alert_owners_hook
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import GateStopped
@@ -22,8 +25,6 @@ from ledgerband.tasks.report import report_task
 from ledgerband.tasks.runlog import FAILED, PUBLISHED, RunLog
 from ledgerband.tasks.train import TrainSummary, train_task
 from ledgerband.tasks.validate import validate_features_task, validate_load_task
-from prefect import flow, get_run_logger
-from prefect.runtime import flow_run
 
 
 @dataclass(frozen=True)

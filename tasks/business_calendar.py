@@ -13,6 +13,7 @@ from datetime import date, timedelta
 import duckdb
 import numpy as np
 import pandas as pd
+
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.period import Window
 from ledgerband.tasks.settings import PayrollSettings, Settings

@@ -61,4 +61,5 @@ class RunContext:
             "min_payer_customers": payroll.min_payer_customers,
             "max_missed_runs": payroll.max_missed_runs,
             "due_grace_days": payroll.due_grace_days,
+            "max_last_pay_change": payroll.max_last_pay_change,
         }

@@ -5,13 +5,14 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import duckdb
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
 from ledgerband.tasks import loads
 from ledgerband.tasks.business_calendar import write_business_calendar, write_pay_frequencies
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.warehouse import build_layers, open_warehouse
-from prefect import task
-from prefect.cache_policies import NO_CACHE
 
 
 @dataclass(frozen=True)

@@ -13,6 +13,9 @@ from decimal import Decimal
 from pathlib import Path
 
 import duckdb
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
 from ledgerband.tasks import loads
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import ExtractError
@@ -24,8 +27,6 @@ from ledgerband.tasks.landing.records import Records, read_records
 from ledgerband.tasks.retry import IO_RETRIES
 from ledgerband.tasks.validate import extract_contract_decision
 from ledgerband.tasks.warehouse import open_warehouse, transaction
-from prefect import task
-from prefect.cache_policies import NO_CACHE
 
 # Sums of one load's readable amounts by direction, and how many records cannot be summed; read through
 # the one parse of the text fields (staging.ledger_lines_parsed).

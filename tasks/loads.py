@@ -12,6 +12,7 @@ from datetime import datetime
 from decimal import Decimal
 
 import duckdb
+
 from ledgerband.tasks.period import Period
 from ledgerband.tasks.warehouse import scalar
 

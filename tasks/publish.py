@@ -16,14 +16,15 @@ from datetime import datetime
 from pathlib import Path
 
 import duckdb
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
 from ledgerband.tasks.bands import write_band_table
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.retry import IO_RETRIES
 from ledgerband.tasks.train import TrainSummary
 from ledgerband.tasks.warehouse import open_warehouse, sql_model, transaction
-from prefect import task
-from prefect.cache_policies import NO_CACHE
 
 READER_TABLES = {
     "income_bands": "select * from published.income_bands",

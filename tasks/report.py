@@ -8,11 +8,12 @@ from pathlib import Path
 
 import duckdb
 from jinja2 import Environment, PackageLoader, select_autoescape
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.retry import IO_RETRIES
 from ledgerband.tasks.warehouse import open_warehouse
-from prefect import task
-from prefect.cache_policies import NO_CACHE
 
 CAUTIONS = (
     "Internal reporting only. These bands estimate income from account behaviour; they are not verified "

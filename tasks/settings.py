@@ -107,6 +107,8 @@ class PayrollSettings(_Section):
     """julian_year: weekly x 365.25/7, fortnightly x 365.25/14, four-weekly x 365.25/28; pay_periods: 52/26/13."""
     max_missed_runs: int = Field(1, ge=0, le=3)
     due_grace_days: int = Field(2, ge=0, le=10)
+    max_last_pay_change: float = Field(0.05, gt=0)
+    """A last payment this far from the pay amount leaves the stream unsettled (no label) until the next."""
     min_payer_customers: int = Field(3, ge=1)
     """An uncoded payer counts as an employer when it pays at least this many customers (or codes salary)."""
 

@@ -18,10 +18,6 @@ from pathlib import Path
 import duckdb
 import numpy as np
 import pandas as pd
-from ledgerband.tasks.bands import band_agreement, income_to_publish
-from ledgerband.tasks.context import RunContext
-from ledgerband.tasks.settings import Settings
-from ledgerband.tasks.warehouse import open_warehouse
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 from sklearn.compose import ColumnTransformer
@@ -32,6 +28,11 @@ from sklearn.model_selection import KFold, RepeatedKFold, cross_val_predict, cro
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, StandardScaler
 from sklearn.tree import DecisionTreeRegressor
+
+from ledgerband.tasks.bands import band_agreement, income_to_publish
+from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.warehouse import open_warehouse
 
 BASELINE = "baseline_mean"
 SCORING = {"rmse": "neg_root_mean_squared_error", "mae": "neg_mean_absolute_error"}

@@ -24,6 +24,9 @@ from typing import Any
 
 import duckdb
 import pandas as pd
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
 from ledgerband.tasks import loads
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import LedgerbandError, ValidationEngineError
@@ -31,8 +34,6 @@ from ledgerband.tasks.gates import QUALITY, Decision, enforce
 from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
 from ledgerband.tasks.settings import Settings
 from ledgerband.tasks.warehouse import open_warehouse, transaction
-from prefect import task
-from prefect.cache_policies import NO_CACHE
 
 SUITES_PACKAGE = "ledgerband.expectations"
 WHOLE_COLUMN_TYPES = frozenset({"expect_column_values_to_be_unique"})

@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import Any
 
 import duckdb
+
 from ledgerband.tasks.errors import LedgerbandError
 
 PACKAGE = "ledgerband.warehouse"

@@ -19,6 +19,7 @@ for _name in list(os.environ):
 
 import duckdb  # noqa: E402
 import pytest  # noqa: E402
+
 from ledgerband.tasks.runtime import configure_process_env  # noqa: E402
 from ledgerband.tasks.settings import Settings, get_settings  # noqa: E402
 from ledgerband.tasks.warehouse import apply_schema  # noqa: E402

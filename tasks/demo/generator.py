@@ -2,15 +2,22 @@
 
 Everything here is invented: Corrandale Mutual Savings, its regions and its customers do not exist.
 Incomes are drawn from a skewed (log-normal) distribution that depends on age, region and a latent
-occupation group; spending, balances and merchant-category mix depend on income with noise. Payroll
-arrives weekly, fortnightly, four-weekly or monthly, moved to the previous business day when it falls
-on a weekend; about 15% of customers have no payroll credits here. Each customer's true income goes to
-an answer file the pipeline never reads.
+occupation group; spending, balances and merchant-category mix depend on income with noise.
+
+Pay comes from employers, each with its own pay calendar (a day of the month, the last Thursday or
+Friday, two days a month, or every 7, 14 or 28 days), its own way of moving pay off weekends and the
+institution's holidays (numpy's business-day rules, not the pipeline's calendar) and its own coding (most
+code salary; one in ten codes nothing). Salaried customers' pay has the life events of real pay: a missed
+run, a job change, leaving, joining, a pay rise, bonuses on another day or on the pay day, a second job.
+Other customers are self-employed, pensioners or paid elsewhere, and some customers get regular credits
+that are not pay (from their own account elsewhere, a lodger, a benefit). Each customer's true income,
+true net pay, pay calendar and life event go to an answer file the pipeline never reads.
 """
 
 from __future__ import annotations
 
 import json
+from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import date, timedelta
 from decimal import Decimal
@@ -21,6 +28,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
+
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.landing.contract import CUSTOMER_COLUMNS, sha256_file
 from ledgerband.tasks.period import Period
@@ -53,15 +61,6 @@ BTC_DIRECT_DEBIT = "PMNT/RDDT/ESDD"
 BTC_CARD = "PMNT/CCRD/POSD"
 BTC_CASH = "PMNT/CCRD/CWDL"
 
-FREQUENCIES = ("weekly", "fortnightly", "four_weekly", "monthly")
-FREQUENCY_SHARE = np.array([0.10, 0.20, 0.15, 0.55])
-PERIODS_PER_YEAR = {
-    "weekly": 365.25 / 7,
-    "fortnightly": 365.25 / 14,
-    "four_weekly": 365.25 / 28,
-    "monthly": 12.0,
-}
-
 
 @dataclass(frozen=True)
 class DemoFiles:
@@ -78,25 +77,6 @@ def _previous_business_day(d: date) -> date:
     while d.weekday() >= 5:  # Saturday=5, Sunday=6
         d -= timedelta(days=1)
     return d
-
-
-def _pay_dates(freq: str, anchor: date, start: date, end: date, pay_day: int) -> list[date]:
-    """Scheduled pay dates in [start, end], each moved to the previous business day."""
-    out: list[date] = []
-    if freq == "monthly":
-        p = Period(start.year, start.month)
-        while p.start <= end:
-            nominal = date(p.year, p.month, min(pay_day, p.end.day))
-            out.append(_previous_business_day(nominal))
-            p = p.shift(1)
-    else:
-        step = {"weekly": 7, "fortnightly": 14, "four_weekly": 28}[freq]
-        d = anchor
-        while d <= end:
-            if d >= start:
-                out.append(_previous_business_day(d))
-            d += timedelta(days=step)
-    return [d for d in out if start <= d <= end]
 
 
 def _customers(rng: np.random.Generator, n: int, end: date) -> pd.DataFrame:
@@ -126,93 +106,294 @@ def _customers(rng: np.random.Generator, n: int, end: date) -> pd.DataFrame:
     )
 
 
+# --- Income: employers with their own pay calendars, what happens to people's pay, other credits ---------
+
+KINDS = ("payroll", "self_employed", "pension_or_benefit", "paid_elsewhere")
+KIND_SHARE = np.array([0.82, 0.07, 0.05, 0.06])
+PATTERNS = ("monthly_day", "monthly_last_weekday", "semi_monthly", "weekly", "fortnightly", "four_weekly")
+PATTERN_SHARE = np.array([0.42, 0.08, 0.07, 0.09, 0.19, 0.15])
+PATTERN_FREQUENCY = {
+    "monthly_day": "monthly",
+    "monthly_last_weekday": "monthly",
+    "semi_monthly": "semi_monthly",
+    "weekly": "weekly",
+    "fortnightly": "fortnightly",
+    "four_weekly": "four_weekly",
+}
+# Pay days a year, by the generator's own definition: month-tied pay by count, cycles over a Julian year.
+PERIODS_PER_YEAR = {
+    "monthly": 12.0,
+    "semi_monthly": 24.0,
+    "weekly": 365.25 / 7,
+    "fortnightly": 365.25 / 14,
+    "four_weekly": 365.25 / 28,
+}
+CYCLE_DAYS = {"weekly": 7, "fortnightly": 14, "four_weekly": 28}
+# What happens to a salaried customer's pay in the window (shares of salaried customers).
+LIFE_EVENTS = (
+    "none",
+    "missed_run",
+    "job_change",
+    "leaver",
+    "new_joiner",
+    "pay_rise",
+    "bonus_other_day",
+    "same_day_bonus",
+    "two_jobs",
+)
+LIFE_EVENT_SHARE = np.array([0.66, 0.03, 0.04, 0.02, 0.04, 0.07, 0.05, 0.04, 0.05])
+UNCODED_EMPLOYER_SHARE = 0.10
+# Regular credits that are not pay (shares of all customers).
+OWN_ACCOUNT_SHARE, LODGER_SHARE, BENEFIT_SHARE = 0.06, 0.03, 0.05
+# ISO 20022 purpose code of a benefit (from memory: BENE, unemployment/disability benefit).
+PURPOSE_BENEFIT = "BENE"
+
+
+@dataclass(frozen=True)
+class Employer:
+    payer_id: str
+    pattern: str
+    days: tuple[int, ...]  # day(s) of the month; iso weekday (last weekday); days after the anchor (cycles)
+    roll: str  # pay due on a non-business day goes to the business day 'backward' or 'forward'
+    coding: str  # 'purpose_and_subfamily' | 'purpose' | 'subfamily' | 'none'
+
+    @property
+    def frequency(self) -> str:
+        return PATTERN_FREQUENCY[self.pattern]
+
+    @property
+    def periods_per_year(self) -> float:
+        return PERIODS_PER_YEAR[self.frequency]
+
+    @property
+    def codes(self) -> tuple[str, str | None]:
+        """(bank transaction code, purpose code) of this employer's pay credits."""
+        return {
+            "purpose_and_subfamily": (BTC_SALARY, "SALA"),
+            "purpose": (BTC_TRANSFER_IN, "SALA"),
+            "subfamily": (BTC_SALARY, None),
+            "none": (BTC_TRANSFER_IN, None),
+        }[self.coding]
+
+
+def holiday_array(holidays: Sequence[str], start: date, end: date) -> np.ndarray:
+    """The institution's holidays (MM-DD every year, or YYYY-MM-DD once) as numpy dates."""
+    days = []
+    for text in holidays:
+        if len(text) == 5:
+            days += [date(y, int(text[:2]), int(text[3:])) for y in range(start.year - 1, end.year + 2)]
+        else:
+            days.append(date.fromisoformat(text))
+    return np.array(sorted(days), dtype="datetime64[D]")
+
+
+def _roll(days: list[date], roll: str, holidays: np.ndarray) -> list[date]:
+    """Move days off weekends and holidays with numpy's business-day rules (not the pipeline's calendar)."""
+    if not days:
+        return []
+    out = np.busday_offset(np.array(days, dtype="datetime64[D]"), 0, roll=roll, holidays=holidays)
+    return [d.astype(object) for d in out]
+
+
+def _last_weekday(p: Period, iso_weekday: int) -> date:
+    return p.end - timedelta(days=(p.end.isoweekday() - iso_weekday) % 7)
+
+
+def pay_days(emp: Employer, start: date, end: date, holidays: np.ndarray) -> list[date]:
+    """The days the employer's pay lands on within [start, end]."""
+    first, last = start - timedelta(days=40), end + timedelta(days=40)
+    nominal: list[date] = []
+    if emp.pattern in CYCLE_DAYS:
+        step = CYCLE_DAYS[emp.pattern]
+        d = date(2000, 1, 7) + timedelta(days=emp.days[0])  # a Friday, plus the employer's phase
+        d += timedelta(days=step * ((first - d).days // step))
+        while d <= last:
+            nominal.append(d)
+            d += timedelta(days=step)
+    else:
+        p = Period.of(first)
+        while p.start <= last:
+            if emp.pattern == "monthly_last_weekday":
+                nominal.append(_last_weekday(p, emp.days[0]))
+            else:
+                nominal += [date(p.year, p.month, min(day, p.end.day)) for day in emp.days]
+            p = p.shift(1)
+    return sorted(d for d in set(_roll(nominal, emp.roll, holidays)) if start <= d <= end)
+
+
+def _employers(rng: np.random.Generator, count: int) -> list[Employer]:
+    out = []
+    for i in range(count):
+        pattern = str(rng.choice(PATTERNS, p=PATTERN_SHARE))
+        if pattern == "monthly_day":
+            days: tuple[int, ...] = (int(rng.choice([1, 5, 10, 15, 20, 25, 28, 31])),)
+        elif pattern == "semi_monthly":
+            days = ((1, 15), (15, 31), (10, 25))[int(rng.integers(0, 3))]
+        elif pattern == "monthly_last_weekday":
+            days = (int(rng.choice([4, 5])),)  # the last Thursday or Friday
+        else:
+            days = (
+                7 * int(rng.integers(0, CYCLE_DAYS[pattern] // 7)) - int(rng.integers(0, 2)),
+            )  # Fri or Thu
+        coding = (
+            "none"
+            if rng.random() < UNCODED_EMPLOYER_SHARE
+            else str(rng.choice(["purpose_and_subfamily", "purpose", "subfamily"], p=[0.6, 0.3, 0.1]))
+        )
+        roll = "forward" if rng.random() < 0.15 else "backward"
+        out.append(Employer(f"EMP-{i + 1:04d}", pattern, days, roll, coding))
+    return out
+
+
+def _labelable(emp: Employer, dates: list[date]) -> bool:
+    """Whether these pay days let a careful reader name the calendar: two payments, four for four-weekly."""
+    return len(dates) >= (4 if emp.frequency == "four_weekly" else 2)
+
+
 def _income_credits(
-    rng: np.random.Generator, cust: pd.DataFrame, start: date, end: date
+    rng: np.random.Generator, cust: pd.DataFrame, start: date, end: date, holidays: np.ndarray
 ) -> tuple[list, pd.DataFrame]:
-    """Payroll and other income credits; returns (rows, per-customer pay facts for the answer file)."""
+    """Pay and other credits; returns (rows, per-customer facts for the answer file)."""
     rows: list[tuple] = []
     facts = []
     n = len(cust)
-    kind = rng.choice(
-        ["payroll", "self_employed", "pension_or_benefit", "paid_elsewhere"], n, p=[0.85, 0.07, 0.04, 0.04]
-    )
+    kind = rng.choice(KINDS, n, p=KIND_SHARE)
+    event = rng.choice(LIFE_EVENTS, n, p=LIFE_EVENT_SHARE)
+    employers = _employers(rng, max(12, int((kind == "payroll").sum()) // 18))
+    size = rng.lognormal(0, 1.0, len(employers))
+    pick = size / size.sum()
+    window_days = (end - start).days + 1
+
+    def credit(c, d, amount, btc, purpose, payer):
+        rows.append(
+            (c.customer_id, c.account_id, d, round(float(amount), 2), "CRDT", btc, purpose, payer, None, None)
+        )
+
+    def pay(c, emp, dates, amount):
+        btc, purpose = emp.codes
+        for d in dates:
+            credit(c, d, amount, btc, purpose, emp.payer_id)
+
+    staff: dict[str, int] = {}
+    pending = []
     for i, c in enumerate(cust.itertuples(index=False)):
+        fact = {"customer_id": c.customer_id, "true_annual_income": c.income, "income_kind": str(kind[i])}
         if kind[i] == "payroll":
-            jobs = 2 if rng.random() < 0.06 else 1
-            shares = [1.0] if jobs == 1 else [0.7, 0.3]
-            freqs = []
-            for j in range(jobs):
-                freq = str(rng.choice(FREQUENCIES, p=FREQUENCY_SHARE))
-                freqs.append(freq)
-                employer = f"EMP-{int(rng.integers(1, 400)):04d}"
-                amount = round(c.income * shares[j] / PERIODS_PER_YEAR[freq], 2)
-                anchor = start - timedelta(days=int(rng.integers(0, 28)))
-                anchor = anchor - timedelta(days=(anchor.weekday() - 4) % 7)  # a Friday
-                pay_day = int(rng.choice([1, 15, 20, 25, 28, 31]))
-                # Most employers also send the salary sub-family code; all send purpose SALA (payroll
-                # without any code needs recurrence-based detection, which comes later).
-                salary_subfamily = rng.random() < 0.7
-                for d in _pay_dates(freq, anchor, start, end, pay_day):
-                    rows.append(
-                        (
-                            c.customer_id,
-                            c.account_id,
-                            d,
-                            amount,
-                            "CRDT",
-                            BTC_SALARY if salary_subfamily else BTC_TRANSFER_IN,
-                            "SALA",
-                            employer,
-                            None,
-                            None,
-                        )
-                    )
-            facts.append((c.customer_id, c.income, "payroll", "+".join(freqs)))
-        elif kind[i] == "pension_or_benefit":
-            amount = round(c.income / 12, 2)
-            for d in _pay_dates("monthly", start, start, end, 10):
-                rows.append(
-                    (
-                        c.customer_id,
-                        c.account_id,
-                        d,
-                        amount,
-                        "CRDT",
-                        BTC_TRANSFER_IN,
-                        "PENS",
-                        "GOV-0001",
-                        None,
-                        None,
-                    )
-                )
-            facts.append((c.customer_id, c.income, kind[i], None))
+            emp = employers[int(rng.choice(len(employers), p=pick))]
+            ev = str(event[i])
+            dates = pay_days(emp, start, end, holidays)
+            amount = c.income / emp.periods_per_year
+            current = [(emp, dates)]  # jobs paying at the window's end, with their pay days here
+            if ev == "missed_run" and len(dates) >= 3:
+                k = int(rng.integers(1, len(dates) - 1))
+                dates = dates[:k] + dates[k + 1 :]
+                current = [(emp, dates)]
+                pay(c, emp, dates, amount)
+            elif ev == "leaver":
+                cutoff = end - timedelta(days=35 + int(rng.integers(5, 30)))
+                pay(c, emp, [d for d in dates if d <= cutoff], amount)
+                current = []
+            elif ev == "new_joiner":
+                joined = end - timedelta(days=int(rng.integers(35, 80)))
+                dates = [d for d in dates if d >= joined]
+                current = [(emp, dates)]
+                pay(c, emp, dates, amount)
+            elif ev == "job_change":
+                new = employers[int(rng.choice(len(employers), p=pick))]
+                change = start + timedelta(days=int(window_days * rng.uniform(0.3, 0.55)))
+                pay(c, emp, [d for d in dates if d < change], amount * rng.uniform(0.8, 1.1))
+                new_dates = [
+                    d for d in pay_days(new, start, end, holidays) if d >= change + timedelta(days=3)
+                ]
+                pay(c, new, new_dates, c.income / new.periods_per_year)
+                current = [(new, new_dates)]
+            elif ev == "pay_rise" and len(dates) >= 2:
+                k = int(rng.integers(1, len(dates)))  # the rise can come with any payment after the first
+                factor = rng.uniform(1.03, 1.7)
+                pay(c, emp, dates[:k], amount / factor)
+                pay(c, emp, dates[k:], amount)
+            elif ev == "two_jobs":
+                second = employers[int(rng.choice(len(employers), p=pick))]
+                if second.payer_id == emp.payer_id:
+                    second = employers[(employers.index(emp) + 1) % len(employers)]
+                pay(c, emp, dates, amount * 0.7)
+                second_dates = pay_days(second, start, end, holidays)
+                pay(c, second, second_dates, c.income * 0.3 / second.periods_per_year)
+                current = [(emp, dates), (second, second_dates)]
+            else:
+                pay(c, emp, dates, amount)
+                btc, purpose = emp.codes
+                if ev == "bonus_other_day" and dates:
+                    day = start + timedelta(days=int(rng.integers(0, window_days)))
+                    day = _roll([day], "backward", holidays)[0]
+                    if day not in dates and day >= start:
+                        credit(c, day, amount * rng.uniform(0.5, 2.0), btc, purpose, emp.payer_id)
+                elif ev == "same_day_bonus" and len(dates) >= 3:
+                    day = dates[int(rng.integers(1, len(dates) - 1))]  # mid-window, a separate credit
+                    credit(c, day, amount * rng.uniform(0.5, 2.0), btc, purpose, emp.payer_id)
+            for job, _ in current:
+                staff[job.payer_id] = staff.get(job.payer_id, 0) + 1
+            fact.update(
+                true_net_pay=c.income if current else float("nan"),
+                pay_pattern="+".join(job.pattern for job, _ in current) or "ended",
+                pay_frequency="+".join(job.frequency for job, _ in current) or None,
+                life_event=ev,
+                employer_coding="+".join(job.coding for job, _ in current) or None,
+            )
+            pending.append((fact, current))
         else:
-            # Irregular credits from several payers (clients, or the customer's own account elsewhere).
-            days = (end - start).days + 1
-            k = max(2, int(rng.poisson(2.5 * days / 30)))
-            parts = rng.dirichlet(np.ones(k)) * c.income * days / 365.25
-            payer_pool = [f"CP-{int(rng.integers(1, 90_000)):05d}" for _ in range(3)]
-            for part in parts:
-                d = _previous_business_day(start + timedelta(days=int(rng.integers(0, days))))
-                rows.append(
-                    (
-                        c.customer_id,
-                        c.account_id,
-                        d,
-                        round(float(part), 2),
-                        "CRDT",
-                        BTC_TRANSFER_IN,
-                        None,
-                        str(rng.choice(payer_pool)),
-                        None,
-                        None,
-                    )
-                )
-            facts.append((c.customer_id, c.income, kind[i], None))
-    answers = pd.DataFrame(
-        facts, columns=["customer_id", "true_annual_income", "income_kind", "pay_frequency"]
-    )
+            fact.update(true_net_pay=float("nan"), pay_pattern="none", pay_frequency=None, life_event="none")
+            if kind[i] == "pension_or_benefit":
+                for d in _roll(
+                    [date(p.year, p.month, 10) for p in _months(start, end)], "backward", holidays
+                ):
+                    credit(c, d, c.income / 12, BTC_TRANSFER_IN, "PENS", "GOV-0001")
+            else:
+                # Irregular credits from several payers (clients, or the customer's own account elsewhere).
+                k = max(2, int(rng.poisson(2.5 * window_days / 30)))
+                parts = rng.dirichlet(np.ones(k)) * c.income * window_days / 365.25
+                payer_pool = [f"CP-{int(rng.integers(1, 90_000)):05d}" for _ in range(3)]
+                for part in parts:
+                    day = _roll(
+                        [start + timedelta(days=int(rng.integers(0, window_days)))], "forward", holidays
+                    )[0]
+                    if day <= end:
+                        credit(c, day, part, BTC_TRANSFER_IN, None, str(rng.choice(payer_pool)))
+            facts.append(fact)
+        # Regular credits that are not pay: from one's own account elsewhere, a lodger, a benefit.
+        months = _months(start, end)
+        if rng.random() < OWN_ACCOUNT_SHARE:
+            day, amount = int(rng.integers(1, 28)), rng.uniform(100, 800)
+            for d in _roll([date(p.year, p.month, day) for p in months], "forward", holidays):
+                if d <= end:
+                    credit(c, d, amount, BTC_TRANSFER_IN, None, "XA-" + c.account_id[2:])
+        if rng.random() < LODGER_SHARE:
+            day, amount = int(rng.integers(1, 28)), rng.uniform(300, 700)
+            for d in _roll([date(p.year, p.month, day) for p in months], "forward", holidays):
+                if d <= end:
+                    credit(c, d, amount, BTC_TRANSFER_IN, None, f"P-{int(rng.integers(1, 90_000)):05d}")
+        if rng.random() < BENEFIT_SHARE:
+            for d in _roll([date(p.year, p.month, 20) for p in months], "backward", holidays):
+                credit(c, d, 140.0, BTC_TRANSFER_IN, PURPOSE_BENEFIT, "GOV-0002")
+    for fact, current in pending:
+        # A careful reader can label a salaried customer when every current job shows its calendar and is
+        # coded as salary, or comes from an employer of at least three customers here.
+        fact["label_expected"] = bool(current) and all(
+            _labelable(job, dates) and (job.coding != "none" or staff.get(job.payer_id, 0) >= 3)
+            for job, dates in current
+        )
+        facts.append(fact)
+    answers = pd.DataFrame(facts)
+    answers["label_expected"] = answers["label_expected"].fillna(False).astype(bool)
     return rows, answers
+
+
+def _months(start: date, end: date) -> list[Period]:
+    out, p = [], Period.of(start)
+    while p.start <= end:
+        out.append(p)
+        p = p.shift(1)
+    return out
 
 
 def _spending(rng: np.random.Generator, cust: pd.DataFrame, start: date, end: date) -> list[tuple]:
@@ -346,6 +527,7 @@ def generate(
     seed: int = 7,
     file_format: str = "csv",
     institution: str = "Corrandale Mutual Savings",
+    holidays: Sequence[str] = ("01-01", "03-14", "06-23", "10-05", "12-25", "12-26"),
 ) -> DemoFiles:
     """Write `months` monthly extracts ending at `end_period`, their manifests and customers.csv.
 
@@ -361,7 +543,7 @@ def generate(
     periods = list(Period.parse(end_period).window(months))
     start, end = periods[0].start, periods[-1].end
     cust = _customers(rng, customers, end)
-    income_rows, answers = _income_credits(rng, cust, start, end)
+    income_rows, answers = _income_credits(rng, cust, start, end, holiday_array(holidays, start, end))
     rows = income_rows + _spending(rng, cust, start, end)
     cols = [
         "customer_id",
@@ -458,7 +640,9 @@ def generate(
     cust_out.to_csv(customers_path, index=False, lineterminator="\n")
 
     answers_path.parent.mkdir(parents=True, exist_ok=True)
-    answers = answers.merge(cust[["customer_id", "occupation", "age"]], on="customer_id")
+    answers = answers.merge(cust[["customer_id", "occupation", "age"]], on="customer_id").sort_values(
+        "customer_id"
+    )
     answers.to_csv(answers_path, index=False, lineterminator="\n")
     return DemoFiles(
         landing_dir, [str(p) for p in periods], extracts, manifests, customers_path, answers_path, len(tx)

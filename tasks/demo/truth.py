@@ -6,6 +6,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+
 from ledgerband.tasks.bands import assign_band_index
 
 
@@ -32,4 +33,47 @@ def truth_check(con, answers_path: Path, run_id: str, edges: tuple[float, ...]) 
         "mean_true_income": float(estimated["true_annual_income"].mean()) if len(err) else float("nan"),
         "band_accuracy": float(np.mean(t == p)) if len(err) else float("nan"),
         "within_one_band": float(np.mean(np.abs(t - p) <= 1)) if len(err) else float("nan"),
+    }
+
+
+def label_agreement(con, answers_path: Path, tolerance: float = 0.02) -> dict:
+    """Demo only: the salary labels against the true net pay the generator wrote, overall and by group.
+
+    A label is right when within `tolerance` of the true net pay, wrong when further off. Counts:
+    salaried customers paid at the window's end; of them those whose pay a careful reader can label
+    (`label_expected`: each current job shows its calendar, coded or from an employer of three or more);
+    and customers without current pay who were given a label anyway.
+    """
+    answers = pd.read_csv(answers_path, dtype={"customer_id": str})
+    labels = con.execute("select customer_id, label_status, annual_salary from features.customer_label").df()
+    m = answers.merge(labels, on="customer_id", how="left")
+    labelled = m["label_status"].eq("labelled")
+    off = (m["annual_salary"] / m["true_net_pay"] - 1).abs()
+    m["outcome"] = np.select(
+        [labelled & (off <= tolerance), labelled & ~(off <= tolerance)], ["right", "wrong"], default="none"
+    )
+    salaried = m[m["true_net_pay"].notna()]
+    expected = salaried[salaried["label_expected"]]
+    unpaid = m[m["true_net_pay"].isna()]
+
+    def shares(frame: pd.DataFrame) -> dict:
+        n = len(frame)
+        counts = frame["outcome"].value_counts()
+        return {
+            "customers": n,
+            **{k: (int(counts.get(k, 0)) / n if n else float("nan")) for k in ("right", "wrong", "none")},
+        }
+
+    def by(column: str) -> dict:
+        return {str(k): shares(g) for k, g in salaried.groupby(column)}
+
+    return {
+        "salaried": shares(salaried),
+        "label_expected": shares(expected),
+        "without_current_pay_labelled": float(labelled[m["true_net_pay"].isna()].mean())
+        if len(unpaid)
+        else 0.0,
+        "without_current_pay": int(len(unpaid)),
+        "by_pattern": by("pay_pattern"),
+        "by_life_event": by("life_event"),
     }

@@ -15,6 +15,7 @@ from dataclasses import asdict, dataclass, field
 from datetime import datetime
 
 import duckdb
+
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import GateStopped
 from ledgerband.tasks.warehouse import transaction

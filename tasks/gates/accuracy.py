@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.gates import ACCURACY, Decision, enforce, pct
 from ledgerband.tasks.settings import Settings
 from ledgerband.tasks.train import TrainSummary
 from ledgerband.tasks.warehouse import open_warehouse
-from prefect import task
-from prefect.cache_policies import NO_CACHE
 
 FIGURES = (
     "n_labelled",

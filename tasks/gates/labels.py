@@ -12,12 +12,13 @@ import math
 from dataclasses import dataclass
 
 import duckdb
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.gates import Decision, enforce, pct
 from ledgerband.tasks.settings import LabelSettings
 from ledgerband.tasks.warehouse import open_warehouse
-from prefect import task
-from prefect.cache_policies import NO_CACHE
 
 LABELS = "labels"
 
@@ -60,7 +61,7 @@ def label_stats(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> LabelStats:
         select
             count(*)::bigint,
             count(*) filter (where label_status = 'labelled')::bigint,
-            count(*) filter (where label_status in ('labelled', 'irregular', 'ambiguous'))::bigint,
+            count(*) filter (where label_status in ('labelled', 'irregular', 'ambiguous', 'unsettled'))::bigint,
             count(*) filter (where label_status in ('irregular', 'ambiguous'))::bigint,
             median(annual_salary) filter (where label_status = 'labelled')
         from features.customer_label

@@ -4,14 +4,15 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
+from prefect import task
+from prefect.cache_policies import NO_CACHE
+
 from ledgerband.tasks import loads
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.gates import QUALITY, Decision, enforce, pct
 from ledgerband.tasks.settings import Settings
 from ledgerband.tasks.validate import ValidationSummary
 from ledgerband.tasks.warehouse import open_warehouse
-from prefect import task
-from prefect.cache_policies import NO_CACHE
 
 
 def quality_gate(validations: Sequence[ValidationSummary], settings: Settings) -> Decision:

@@ -10,6 +10,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
+
 from ledgerband.tasks.errors import ExtractError
 
 

@@ -5,6 +5,7 @@ import shutil
 from pathlib import Path
 
 import pytest
+
 from ledgerband.tasks import loads
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import ExtractError, GateStopped

@@ -8,6 +8,7 @@ from pathlib import Path
 
 import duckdb
 import pytest
+
 from ledgerband.tasks.errors import GateStopped
 
 pytestmark = pytest.mark.integration
@@ -128,6 +129,7 @@ def test_report_carries_the_cautions_and_the_model_comparison(first_run):
 
 def test_saved_model_reloads_and_reproduces_the_estimates(home, first_run):
     import numpy as np
+
     from ledgerband.tasks.train import load_model, model_frame
 
     folder = home / "models" / "2026-10" / first_run.run_id
@@ -221,9 +223,10 @@ def test_bad_extract_stops_the_run_at_the_quality_gate(home, first_run, monkeypa
 
 
 def test_cli_names_the_missing_period_folder_without_a_traceback(prefect_api, tmp_path, monkeypatch):
+    from typer.testing import CliRunner
+
     from ledgerband.flows.cli import app
     from ledgerband.tasks.settings import get_settings
-    from typer.testing import CliRunner
 
     monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path / "state"))
     get_settings.cache_clear()

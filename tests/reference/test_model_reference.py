@@ -5,9 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from sklearn.model_selection import RepeatedKFold
+
 from ledgerband.tasks.settings import Settings
 from ledgerband.tasks.train import compare_candidates, make_candidates
-from sklearn.model_selection import RepeatedKFold
 
 LONGLEY_X = ["GNPDEFL", "GNP", "UNEMP", "ARMED", "POP", "YEAR"]
 
@@ -89,9 +90,10 @@ def test_sklearn_documented_error_examples():
     # Source: scikit-learn API docs for mean_absolute_error and root_mean_squared_error, example
     # y_true = [3, -0.5, 2, 7], y_pred = [2.5, 0.0, 2, 8] -> MAE 0.5, RMSE 0.612... (sqrt(0.375)).
     # Our CV scoring uses these scorers by name; this pins the names to the documented definitions.
-    from ledgerband.tasks.train import SCORING
     from sklearn.dummy import DummyRegressor
     from sklearn.metrics import get_scorer
+
+    from ledgerband.tasks.train import SCORING
 
     y_true = np.array([3, -0.5, 2, 7])
     y_pred = np.array([2.5, 0.0, 2, 8])

@@ -115,6 +115,7 @@ def build_salary(con, window: dict = WINDOW, **payroll) -> None:
         "min_payer_customers": settings.payroll.min_payer_customers,
         "max_missed_runs": settings.payroll.max_missed_runs,
         "due_grace_days": settings.payroll.due_grace_days,
+        "max_last_pay_change": settings.payroll.max_last_pay_change,
     }
     for layer, name in (
         ("intermediate", "payroll_credits"),

@@ -254,3 +254,14 @@ def test_the_payroll_convention_is_applied_by_the_sql(con, ledger):
     ledger.load()
     build_salary(con, annualisation="pay_periods")
     assert _label(con)[1] == pytest.approx(400 * 52)
+
+
+def test_a_rise_on_the_last_pay_day_waits_a_month_for_a_label(con, ledger):
+    # Monthly 2000 on the 28th, then 2600 on Wed 28 Oct: a rise, or a one-off on the pay day? One payment
+    # cannot tell; the median of the last three would say 2000, 23% low if it is a rise. No label yet.
+    ledger.pay("C1", [date(2026, 8, 28), date(2026, 9, 28)], 2000.0)
+    ledger.pay("C1", [date(2026, 10, 28)], 2600.0)
+    ledger.load()
+    build_salary(con)
+    assert _label(con) == ("unsettled", None, None)
+    assert _streams(con)[0][3] is True  # still current: it is paying

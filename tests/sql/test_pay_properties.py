@@ -16,10 +16,10 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+
 from ledgerband.tasks.period import Period
 from ledgerband.tasks.settings import PayrollSettings
 from ledgerband.tasks.warehouse import apply_schema
-
 from tests.sql.sqlkit import Ledger, build_salary
 
 FREQUENCY = {

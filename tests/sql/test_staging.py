@@ -3,7 +3,6 @@
 from datetime import date, datetime
 
 from ledgerband.tasks.warehouse import run_sql_file
-
 from tests.sql.sqlkit import WINDOW
 
 

@@ -1,5 +1,6 @@
 import numpy as np
 import pytest
+
 from ledgerband.tasks.bands import assign_band_index, band_agreement, band_table
 
 EDGES = (25_000, 40_000, 60_000)
@@ -40,6 +41,7 @@ def test_published_band_sql_agrees_with_python_at_every_edge(con):
     from datetime import datetime
 
     import pandas as pd
+
     from ledgerband.tasks.bands import income_to_publish, write_band_table
     from ledgerband.tasks.publish import insert_from_file
 

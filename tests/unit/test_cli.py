@@ -6,9 +6,10 @@ import sys
 
 import duckdb
 import pytest
+from typer.testing import CliRunner
+
 from ledgerband.flows.cli import app
 from ledgerband.tasks.warehouse import apply_schema
-from typer.testing import CliRunner
 
 runner = CliRunner()
 

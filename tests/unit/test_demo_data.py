@@ -6,6 +6,7 @@ from decimal import Decimal
 import numpy as np
 import pandas as pd
 import pytest
+
 from ledgerband.tasks.demo.generator import generate
 from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
 

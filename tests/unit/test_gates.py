@@ -1,6 +1,7 @@
 import math
 
 import pytest
+
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import GateStopped
 from ledgerband.tasks.gates import Decision, enforce

@@ -5,6 +5,7 @@ from pathlib import Path
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
+
 from ledgerband.tasks.errors import ExtractError
 from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
 from ledgerband.tasks.landing.manifest import find_manifests, read_manifest

@@ -1,6 +1,7 @@
 from datetime import date
 
 import pytest
+
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.period import Period
 

@@ -1,7 +1,8 @@
 import pytest
+from prefect.states import Failed
+
 from ledgerband.tasks.errors import ExtractError, GateStopped
 from ledgerband.tasks.retry import retry_on_io
-from prefect.states import Failed
 
 
 @pytest.mark.parametrize(

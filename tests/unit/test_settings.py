@@ -1,8 +1,9 @@
 from pathlib import Path
 
 import pytest
-from ledgerband.tasks.settings import Settings, TrainSettings
 from pydantic import ValidationError
+
+from ledgerband.tasks.settings import Settings, TrainSettings
 
 EXAMPLE = Path(__file__).parents[2] / "ledgerband.toml"  # the commented example in the repository
 

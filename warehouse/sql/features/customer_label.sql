@@ -5,6 +5,7 @@
 --   labelled     every current stream is classified; several employers add up
 --   irregular    a current stream follows no pay calendar (no partial labels: the model estimates them)
 --   ambiguous    a current stream fits calendars of different frequencies equally well
+--   unsettled    a current stream's last payment changed the amount (a rise, or a one-off: wait a month)
 --   ended        pay credits in the window, but none current (a leaver, or a missed run at the end)
 --   no_pay       no pay credits in the window
 -- label_confidence: high when every stream is coded, complete and explained by three or more payments;
@@ -29,6 +30,8 @@ per_customer as (
             as irregular_count,
         count(*) filter (where streams.is_current and streams.status = 'ambiguous')::bigint
             as ambiguous_count,
+        count(*) filter (where streams.is_current and streams.status = 'unsettled')::bigint
+            as unsettled_count,
         sum(streams.annual_salary) filter (where streams.is_current) as annual_salary,
         sum(streams.bonus_amount) as bonus_amount,
         arg_max(streams.pay_frequency, streams.annual_salary) filter (where streams.is_current)
@@ -46,6 +49,7 @@ decided as (
             when per_customer.customer_id is null then 'no_pay'
             when per_customer.irregular_count > 0 then 'irregular'
             when per_customer.ambiguous_count > 0 then 'ambiguous'
+            when per_customer.unsettled_count > 0 then 'unsettled'
             when per_customer.stream_count = 0 then 'ended'
             else 'labelled'
         end as label_status,

@@ -192,8 +192,9 @@ fits as (
         min(ranked.booking_date) as first_pay_date,
         max(ranked.booking_date) as last_pay_date,
         sum(ranked.amount) as explained_amount,
-        (max(ranked.amount) - min(ranked.amount)) / nullif(median(ranked.amount), 0) as amount_spread,
-        median(ranked.amount) filter (where ranked.recency <= 3) as recent_amount
+        max(ranked.amount) / nullif(median(ranked.amount), 0) as amount_peak,
+        median(ranked.amount) filter (where ranked.recency <= 3) as recent_amount,
+        max(ranked.amount) filter (where ranked.recency = 1) as last_amount
     from ranked
     group by ranked.customer_id, ranked.payer_id, ranked.pattern, ranked.pattern_param
 ),
@@ -276,10 +277,11 @@ final as (
         next_due.next_due_date,
         one_to_one.explained_amount,
         one_to_one.recent_amount,
+        one_to_one.last_amount,
         one_to_one.same_day_bonus_amount,
-        -- explained payments within 25% of each other: a steady amount, the mark of pay rather than of
-        -- a bonus folded into the calendar
-        coalesce(one_to_one.amount_spread <= 0.25, false) as is_steady,
+        -- no explained payment more than 25% above the median: pay, rather than a bonus folded into the
+        -- calendar (a payment below is the old level before a rise, which is no sign either way)
+        coalesce(one_to_one.amount_peak <= 1.25, false) as is_steady,
         -- Four-weekly pay is told from monthly pay only by three gaps that a monthly calendar cannot
         -- explain; with fewer, the fit still competes (and makes the stream ambiguous) but is not chosen.
         (one_to_one.frequency <> 'four_weekly' or one_to_one.explained_count >= 4) as is_choosable
