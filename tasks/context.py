@@ -17,7 +17,8 @@ class RunContext:
 
     run_id: str
     period: Period
-    window: Window
+    window: Window  # the months behavioural features see
+    salary_window: Window  # the months pay credits are read from (payroll.lookback_months)
     landing_dir: Path
     settings: Settings
     started_at: datetime
@@ -38,10 +39,16 @@ class RunContext:
             run_id=run_id or str(uuid.uuid4()),
             period=period,
             window=period.window(settings.features.window_months),
+            salary_window=period.window(settings.payroll.lookback_months),
             landing_dir=Path(landing_dir) if landing_dir else settings.landing,
             settings=settings,
             started_at=datetime.now(),
         )
+
+    @property
+    def load_window(self) -> Window:
+        """Every month the run needs loaded: the longer of the feature and salary windows."""
+        return max(self.window, self.salary_window, key=len)
 
     @property
     def warehouse(self) -> Path:
@@ -57,6 +64,7 @@ class RunContext:
         return {
             "window_start": self.window.start,
             "window_end": self.window.end,
+            "salary_window_start": self.salary_window.start,
             "large_debit_threshold": self.settings.features.large_debit_threshold,
             "min_payer_customers": payroll.min_payer_customers,
             "max_missed_runs": payroll.max_missed_runs,

@@ -25,12 +25,12 @@ class FeatureBuild:
 def check_window_loaded(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> None:
     """Refuse to build features over a window with a month that has no accepted extract."""
     accepted = loads.accepted_periods(con)
-    missing = [str(p) for p in ctx.window if p not in accepted]
+    missing = [str(p) for p in ctx.load_window if p not in accepted]
     if missing:
         raise LedgerbandError(
-            f"feature window {ctx.window} has no accepted extract for {', '.join(missing)}; "
+            f"the run's months {ctx.load_window} have no accepted extract for {', '.join(missing)}; "
             "put those extracts and manifests in the landing folder and run again "
-            "(or set features.window_months lower)"
+            "(or set features.window_months / payroll.lookback_months lower)"
         )
     if not loads.has_accepted_customers(con):
         raise LedgerbandError("no customer reference file has been loaded")
@@ -40,7 +40,7 @@ def build_features(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> FeatureBu
     """Rebuild the reference tables from settings, then every layer table for the run's window."""
     check_window_loaded(con, ctx)
     write_pay_frequencies(con, ctx.settings)
-    write_business_calendar(con, ctx.window, ctx.settings.payroll)
+    write_business_calendar(con, ctx.load_window, ctx.settings.payroll)
     return FeatureBuild(build_layers(con, ctx.layer_params()))
 
 

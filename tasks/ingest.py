@@ -192,10 +192,11 @@ def load_customers(con: duckdb.DuckDBPyConnection, ctx: RunContext, path: Path) 
 
 @task(name="find-extracts", cache_policy=NO_CACHE, **IO_RETRIES)
 def find_extracts_task(ctx: RunContext) -> list[Path]:
-    """Manifests of every window month not yet accepted (a landing folder may be cleaned once accepted)."""
+    """Manifests of every month the run needs that is not yet accepted (a landing folder may be cleaned
+    once its month is accepted)."""
     with open_warehouse(ctx.warehouse) as con:
         accepted = loads.accepted_periods(con)
-    return manifests_to_load(ctx.landing_dir, ctx.window, accepted)
+    return manifests_to_load(ctx.landing_dir, ctx.load_window, accepted)
 
 
 @task(name="ingest-extract", task_run_name="ingest-{manifest_path.name}", cache_policy=NO_CACHE, **IO_RETRIES)

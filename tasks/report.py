@@ -39,7 +39,7 @@ def _rows(con: duckdb.DuckDBPyConnection, query: str, params: list) -> list[dict
 def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
     """Everything the report shows, read back from the warehouse (the report computes nothing new)."""
     settings, run_id, period = ctx.settings, ctx.run_id, str(ctx.period)
-    window = ctx.window.labels
+    window = ctx.load_window.labels
     run = _rows(con, "select * from ops.runs where run_id = ?", [run_id])
     decisions = _rows(con, "select * from published.decisions where run_id = ? order by decided_at", [run_id])
     for d in decisions:

@@ -99,6 +99,8 @@ class BandSettings(_Section):
 class PayrollSettings(_Section):
     """How pay credits become a salary label (intermediate.payroll_credits, intermediate.salary_streams)."""
 
+    lookback_months: int = Field(4, ge=1, le=24)
+    """Months of pay credits a salary is read from (four: four-weekly pay always shows four payments)."""
     holiday_country: str = ""
     """ISO 3166-1 alpha-2 code of the institution's country for public holidays (the `holidays` package); empty: none."""
     holidays: tuple[str, ...] = ("01-01", "03-14", "06-23", "10-05", "12-25", "12-26")
@@ -151,7 +153,7 @@ class FeatureSettings(_Section):
 class DemoSettings(_Section):
     institution: str = "Corrandale Mutual Savings"
     customers: int = Field(2_000, ge=50)
-    months: int = Field(3, ge=1, le=24)
+    months: int = Field(4, ge=1, le=24)
     end_period: str = "2026-10"
     seed: int = 7
     file_format: str = Field("csv", pattern="^(csv|parquet)$")

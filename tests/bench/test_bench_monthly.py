@@ -19,7 +19,7 @@ pytestmark = pytest.mark.bench
 
 def test_monthly_flow_at_scale(tmp_path, monkeypatch, prefect_api):
     customers = int(os.environ.get("BENCH_CUSTOMERS", "20000"))
-    months = int(os.environ.get("BENCH_MONTHS", "3"))
+    months = int(os.environ.get("BENCH_MONTHS", "4"))
     monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path))
     from ledgerband.flows.monthly import monthly_run
     from ledgerband.tasks.demo.generator import generate

@@ -31,7 +31,7 @@ def demo(home):
     get_settings.cache_clear()
     s = get_settings()
     files = generate(
-        s.demo_landing_dir, s.demo_answers_path, customers=CUSTOMERS, months=3, end_period="2026-10", seed=11
+        s.demo_landing_dir, s.demo_answers_path, customers=CUSTOMERS, months=4, end_period="2026-10", seed=11
     )
     _spoil_last_month(files)
     return files
@@ -155,7 +155,7 @@ def test_rerun_loads_nothing_twice_and_publishes_a_new_snapshot(home, first_run,
     raw_before = _q(home, "select count(*) from raw.ledger_lines")[0][0]
     second = monthly_run("2026-10", demo.landing_dir)
     assert _q(home, "select count(*) from raw.ledger_lines")[0][0] == raw_before
-    assert _q(home, "select count(*) from ops.loads")[0][0] == 4  # three extracts + customers, once each
+    assert _q(home, "select count(*) from ops.loads")[0][0] == 5  # four extracts + customers, once each
     assert _q(home, "select run_id from published.snapshots where is_current") == [(second.run_id,)]
     assert _q(home, "select count(*) from published.income_bands")[0][0] == CUSTOMERS
 
@@ -193,6 +193,7 @@ def test_bad_extract_stops_the_run_at_the_quality_gate(home, first_run, monkeypa
     shutil.copytree(Path(__file__).parents[1] / "fixtures" / "ledger_bad", landing)
     monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path / "state"))
     monkeypatch.setenv("LEDGERBAND_FEATURES__WINDOW_MONTHS", "1")
+    monkeypatch.setenv("LEDGERBAND_PAYROLL__LOOKBACK_MONTHS", "1")
     get_settings.cache_clear()
     with pytest.raises(
         GateStopped,
@@ -234,7 +235,7 @@ def test_cli_names_the_missing_period_folder_without_a_traceback(prefect_api, tm
     result = CliRunner().invoke(app, ["run", "--period", "2026-10", "--landing", str(tmp_path / "landing")])
     assert result.exit_code == 2
     assert (
-        f"no landing folder for period 2026-08: expected {tmp_path / 'landing' / '2026-08'}" in result.output
+        f"no landing folder for period 2026-07: expected {tmp_path / 'landing' / '2026-07'}" in result.output
     )
     assert "Traceback" not in result.output
 
@@ -268,7 +269,7 @@ def test_a_month_whose_payroll_codes_vanish_is_stopped_by_the_label_gate(prefect
     get_settings.cache_clear()
     s = get_settings()
     files = generate(
-        s.demo_landing_dir, s.demo_answers_path, customers=300, months=3, end_period="2026-10", seed=5
+        s.demo_landing_dir, s.demo_answers_path, customers=300, months=4, end_period="2026-10", seed=5
     )
     last = files.extracts[-1]
     with last.open(newline="") as f:

@@ -111,6 +111,7 @@ def build_salary(con, window: dict = WINDOW, **payroll) -> None:
     months = (end.year - start.year) * 12 + end.month - start.month + 1
     write_business_calendar(con, Period.of(end).window(months), settings.payroll)
     params = {
+        "salary_window_start": window["window_start"],
         **window,
         "min_payer_customers": settings.payroll.min_payer_customers,
         "max_missed_runs": settings.payroll.max_missed_runs,

@@ -59,16 +59,16 @@ def test_holiday_shift_in_fortnightly_pay_keeps_the_frequency(con, ledger):
 
 
 def test_a_one_off_bonus_does_not_set_the_pay_amount(con, ledger):
-    ledger.pay("C1", [date(2026, 8, 28), date(2026, 9, 28)], 2000.0)
-    ledger.pay("C1", [date(2026, 10, 28)], 2000.0)
-    ledger.pay("C1", [date(2026, 10, 28)], 5000.0, txn_id="BONUS")  # same payer, same day
+    ledger.pay("C1", [date(2026, 8, 28), date(2026, 10, 28)], 2000.0)
+    ledger.pay("C1", [date(2026, 9, 28)], 2000.0)
+    ledger.pay("C1", [date(2026, 9, 28)], 5000.0, txn_id="BONUS")  # same payer, same day, mid-window
     ledger.load()
     _build(con)
     [(freq, amount, annual, _)] = _stream(con, "C1")
-    # Median of the latest three payments (2000, 2000, 7000) is 2000.
+    # Median of the latest three payments (2000, 7000, 2000) is 2000.
     assert amount == 2000.0 and annual == pytest.approx(24_000.0)
     assert freq == "monthly"
-    # The bonus is reported, not annualised: 7000 paid on 28 Oct is 2000 of pay and 5000 of bonus.
+    # The bonus is reported, not annualised: 7000 paid on 28 Sep is 2000 of pay and 5000 of bonus.
     assert con.execute("select bonus_amount from intermediate.salary_streams").fetchall() == [(5000.0,)]
 
 

@@ -45,7 +45,7 @@ def test_payroll_is_recognised_by_purpose_or_sub_family(con, ledger):
     )  # paying staff
     ledger.add("C1", date(2026, 10, 5), 5.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT")  # no purpose code
     ledger.load()
-    run_sql_file(con, "intermediate", "payroll_credits", {**WINDOW, "min_payer_customers": 3})
+    run_sql_file(con, "intermediate", "payroll_credits", {**WINDOW, "salary_window_start": WINDOW["window_start"], "min_payer_customers": 3})
     got = con.execute("select amount::double from intermediate.payroll_credits order by amount").fetchall()
     assert got == [(1.0,), (2.0,)]
 

@@ -1,7 +1,7 @@
 -- intermediate.payroll_credits
 -- Grain: one row per (customer_id, payer_id, booking_date) of pay credits. Key: those three.
 -- Reads: staging.transactions.
--- Parameters: $window_start, $window_end (dates, inclusive), $min_payer_customers.
+-- Parameters: $salary_window_start, $window_end (dates, inclusive), $min_payer_customers.
 -- A credit is pay when the payer coded it as salary (ISO 20022 purpose SALA, or bank transaction
 -- sub-family SALA: is_coded), or when it is an uncoded received credit transfer from a payer that is an
 -- employer: one that codes salary to someone in the window, or that sends such uncoded transfers to at
@@ -17,7 +17,7 @@ with
 transactions as (
     select *
     from staging.transactions
-    where booking_date between $window_start and $window_end
+    where booking_date between $salary_window_start and $window_end
 ),
 
 own_accounts as (

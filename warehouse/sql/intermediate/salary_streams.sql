@@ -10,9 +10,9 @@
 --   ambiguous    calendars of different frequencies explain it equally well (e.g. two payments 14 days
 --                apart on the 1st and 15th: fortnightly or semi-monthly), or only a four-weekly calendar
 --                with too few payments to tell it from monthly: no label is better than a wrong one;
---   unsettled    classified, but the last payment is more than $max_last_pay_change below the pay
---                amount, or above it by up to half (more is a bonus paid on the pay day): a pay change on
---                the last pay day cannot be told from a one-off, so no label until the next payment;
+--   unsettled    classified, but the last payment differs from the pay amount by more than
+--                $max_last_pay_change: a pay rise on the last pay day cannot be told from a bonus paid
+--                with it, so there is no label until the next payment settles it;
 --   unclassified no calendar explains it.
 -- A classified stream is current when its next payment was not due by the window's end (plus
 -- $due_grace_days for late postings): at the window's end a missed run cannot be told from leaving, and
@@ -127,11 +127,7 @@ classified as (
         case
             when chosen.customer_id is null then 'unclassified'
             when rivals.frequency_count > 1 or not chosen.is_choosable then 'ambiguous'
-            when
-                chosen.last_amount < chosen.recent_amount * (1 - $max_last_pay_change)
-                or chosen.last_amount between chosen.recent_amount * (1 + $max_last_pay_change)
-                and chosen.recent_amount * 1.5
-                then 'unsettled'
+            when abs(chosen.last_amount / chosen.recent_amount - 1) > $max_last_pay_change then 'unsettled'
             else 'classified'
         end as status,
         coalesce(chosen.same_day_bonus_amount, 0) as same_day_bonus_amount
@@ -162,7 +158,8 @@ final as (
         next_due_date,
         coalesce(
             case
-                when status in ('classified', 'unsettled') then next_due_date + $due_grace_days > $window_end::date
+                when status in ('classified', 'unsettled')
+                    then next_due_date + $due_grace_days > $window_end::date
                 else last_any_pay_date >= $window_end::date - (35 + $due_grace_days)
             end,
             false
