@@ -281,6 +281,7 @@ def _income_credits(
         if kind[i] == "payroll":
             emp = employers[int(rng.choice(len(employers), p=pick))]
             ev = str(event[i])
+            readable = True
             dates = pay_days(emp, start, end, holidays)
             amount = c.income / emp.periods_per_year
             current = [(emp, dates)]  # jobs paying at the window's end, with their pay days here
@@ -312,6 +313,8 @@ def _income_credits(
                 factor = rng.uniform(1.03, 1.7)
                 pay(c, emp, dates[:k], amount / factor)
                 pay(c, emp, dates[k:], amount)
+                # A rise first paid on the last pay day cannot be told from a one-off from the data.
+                readable = k < len(dates) - 1
             elif ev == "two_jobs":
                 second = employers[int(rng.choice(len(employers), p=pick))]
                 if second.payer_id == emp.payer_id:
@@ -340,7 +343,7 @@ def _income_credits(
                 life_event=ev,
                 employer_coding="+".join(job.coding for job, _ in current) or None,
             )
-            pending.append((fact, current))
+            pending.append((fact, current, readable))
         else:
             fact.update(true_net_pay=float("nan"), pay_pattern="none", pay_frequency=None, life_event="none")
             if kind[i] == "pension_or_benefit":
@@ -375,12 +378,17 @@ def _income_credits(
         if rng.random() < BENEFIT_SHARE:
             for d in _roll([date(p.year, p.month, 20) for p in months], "backward", holidays):
                 credit(c, d, 140.0, BTC_TRANSFER_IN, PURPOSE_BENEFIT, "GOV-0002")
-    for fact, current in pending:
+    for fact, current, readable in pending:
         # A careful reader can label a salaried customer when every current job shows its calendar and is
-        # coded as salary, or comes from an employer of at least three customers here.
-        fact["label_expected"] = bool(current) and all(
-            _labelable(job, dates) and (job.coding != "none" or staff.get(job.payer_id, 0) >= 3)
-            for job, dates in current
+        # coded as salary, or comes from an employer of at least three customers here, and the pay amount
+        # is not still changing on the last pay day.
+        fact["label_expected"] = (
+            readable
+            and bool(current)
+            and all(
+                _labelable(job, dates) and (job.coding != "none" or staff.get(job.payer_id, 0) >= 3)
+                for job, dates in current
+            )
         )
         facts.append(fact)
     answers = pd.DataFrame(facts)
