@@ -47,13 +47,20 @@ def assign_band_index(values: np.ndarray | Sequence[float], edges: Sequence[floa
     return np.searchsorted(np.asarray(edges, dtype=float), np.asarray(values, dtype=float), side="right")
 
 
-def income_to_publish(annual_salary: pd.Series, estimate: pd.Series, edges: Sequence[float]) -> pd.DataFrame:
+def income_to_publish(
+    annual_salary: pd.Series, observed_pension: pd.Series, estimate: pd.Series, edges: Sequence[float]
+) -> pd.DataFrame:
     """The amount each customer is published with and its band.
 
-    Observed salary wins over the model. The amount is rounded to cents before banding, so the published
-    amount and its band always agree.
+    Observed salary wins, then an observed pension, then the model's estimate. The amount is rounded to
+    cents before banding, so the published amount and its band always agree.
     """
-    value = annual_salary.astype("float64").where(annual_salary.notna(), estimate.astype("float64")).round(2)
+    value = (
+        annual_salary.astype("float64")
+        .fillna(observed_pension.astype("float64"))
+        .fillna(estimate.astype("float64"))
+        .round(2)
+    )
     return pd.DataFrame(
         {"income_value": value, "band_index": assign_band_index(value, edges).astype("int32")}
     )

@@ -70,4 +70,5 @@ class RunContext:
             "max_missed_runs": payroll.max_missed_runs,
             "due_grace_days": payroll.due_grace_days,
             "max_last_pay_change": payroll.max_last_pay_change,
+            "pensions_observed": payroll.pensions_observed,
         }

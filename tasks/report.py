@@ -58,7 +58,7 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
         con,
         """
         select b.band_index, b.income_band, b.band_label,
-               count(h.customer_id) filter (where h.band_source = 'observed_salary') as observed,
+               count(h.customer_id) filter (where h.band_source like 'observed%') as observed,
                count(h.customer_id) filter (where h.band_source = 'model_estimate') as estimated,
                count(h.customer_id) as customers
         from ref.income_bands as b
@@ -93,8 +93,17 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
         """,
         [window],
     )
+    labels = []
+    if any(d["gate"] == "labels" for d in decisions):  # the run built this month's labels
+        labels = _rows(
+            con,
+            "select label_status, coalesce(label_confidence, '–') as confidence, count(*)::bigint as customers, "
+            "sum(bonus_amount)::double as bonus_amount from features.customer_label group by all order by all",
+            [],
+        )
     return {
         "run_id": run_id,
+        "labels": labels,
         "period": period,
         "generated_at": datetime.now().isoformat(timespec="seconds"),
         "run": run[0] if run else {},

@@ -111,6 +111,8 @@ class PayrollSettings(_Section):
     due_grace_days: int = Field(2, ge=0, le=10)
     max_last_pay_change: float = Field(0.05, gt=0)
     """A last payment this far from the pay amount leaves the stream unsettled (no label) until the next."""
+    pensions_observed: bool = True
+    """A pension read from its credits is published as observed income (its own band_source)."""
     min_payer_customers: int = Field(3, ge=1)
     """An uncoded payer counts as an employer when it pays at least this many customers (or codes salary)."""
 

@@ -83,9 +83,10 @@ def model_frame(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
     """Every customer's features with the observed annual salary (null when not paid here)."""
     return con.sql(
         """
-        select c.*, s.annual_salary
+        select c.*, s.annual_salary, l.annual_pension
         from features.customer as c
         left join features.customer_salary as s using (customer_id)
+        left join features.customer_label as l using (customer_id)
         order by c.customer_id
         """
     ).df()
@@ -221,10 +222,16 @@ def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainS
             "estimate": estimate,
             "oof_estimate": frame["customer_id"].map(oof_by_customer).astype("float64"),
             "annual_salary": frame["annual_salary"].astype("float64"),
+            "observed_pension": frame["annual_pension"].astype("float64"),
         }
     )
     predictions = predictions.join(
-        income_to_publish(predictions["annual_salary"], predictions["estimate"], settings.bands.edges)
+        income_to_publish(
+            predictions["annual_salary"],
+            predictions["observed_pension"],
+            predictions["estimate"],
+            settings.bands.edges,
+        )
     )
     con.register("prediction_rows", predictions)
     con.execute("insert into ml.predictions by name select * from prediction_rows")

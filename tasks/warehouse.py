@@ -121,7 +121,13 @@ def sql_model(layer: str, name: str) -> SqlModel:
     reads_line = _READS.search(text)
     if not reads_line:
         raise LedgerbandError(f"sql/{layer}/{name}.sql: the header must declare '-- Reads: <tables>.'")
-    reads = tuple(f"{a}.{b}" for a, b in _TABLE_NAME.findall(reads_line.group("names")))
+    names = reads_line.group("names")
+    rest = text[reads_line.end() :].splitlines()[1:]
+    while (
+        not names.rstrip().endswith(".") and rest and rest[0].startswith("-- ")
+    ):  # continued on the next line
+        names += " " + rest.pop(0)[3:]
+    reads = tuple(f"{a}.{b}" for a, b in _TABLE_NAME.findall(names))
     kind = _MATERIALIZED.search(text)
     return SqlModel(
         layer=layer,

@@ -141,6 +141,8 @@ create table if not exists ml.predictions (
 -- band, computed once by ledgerband.tasks.bands; the publish SQL only reads them.
 alter table ml.predictions add column if not exists income_value double;
 alter table ml.predictions add column if not exists band_index integer;
+-- A pension read from its credits (payroll.pensions_observed), published as observed income.
+alter table ml.predictions add column if not exists observed_pension double;
 
 -- One row per run, gate, check and subject: the decision and every figure behind it (JSON).
 create table if not exists published.decisions (

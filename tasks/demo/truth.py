@@ -18,10 +18,11 @@ def truth_check(con, answers_path: Path, run_id: str, edges: tuple[float, ...]) 
     """
     answers = pd.read_csv(answers_path, dtype={"customer_id": str})
     pred = con.execute(
-        "select customer_id, estimate, annual_salary from ml.predictions where run_id = ?", [run_id]
+        "select customer_id, estimate, annual_salary, observed_pension from ml.predictions where run_id = ?",
+        [run_id],
     ).df()
     m = pred.merge(answers, on="customer_id")
-    estimated = m[m["annual_salary"].isna()]
+    estimated = m[m["annual_salary"].isna() & m["observed_pension"].isna()]
     err = estimated["estimate"] - estimated["true_annual_income"]
     t = assign_band_index(estimated["true_annual_income"], edges)
     p = assign_band_index(estimated["estimate"], edges)

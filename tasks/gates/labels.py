@@ -70,7 +70,7 @@ def label_stats(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> LabelStats:
     by_month = dict(
         con.execute(
             "select date_trunc('month', booking_date)::date, count(*)::bigint from intermediate.payroll_credits "
-            "where is_coded group by all"
+            "where is_coded and income_kind = 'salary' group by all"
         ).fetchall()
     )
     this_month = int(by_month.get(ctx.period.start, 0))

@@ -193,7 +193,8 @@ def ledger_con_with_features(con, settings, tmp_path):
     _settle(con, v, settings)
     load_customers(con, _ctx("run-1"), landing / "customers.csv")
     build_features(
-        con, _ctx("run-1", Settings(home=tmp_path, features={"window_months": 1}, payroll={"lookback_months": 1}))
+        con,
+        _ctx("run-1", Settings(home=tmp_path, features={"window_months": 1}, payroll={"lookback_months": 1})),
     )
     return con
 

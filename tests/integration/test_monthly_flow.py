@@ -79,6 +79,15 @@ def test_a_month_publishes_one_band_row_per_customer(home, first_run):
     sources = dict(_q(home, "select band_source, count(*) from published.income_bands group by all"))
     assert sources["observed_salary"] == _q(home, "select count(*) from features.customer_salary")[0][0]
     assert sources["model_estimate"] > 0
+    # Pensions read from their credits are published as observed income, never as salary labels.
+    assert (
+        sources["observed_pension"]
+        == _q(
+            home,
+            "select count(*) from features.customer_label where annual_pension is not null and annual_salary is null",
+        )[0][0]
+    )
+    assert sources["observed_pension"] > 0
 
 
 def test_every_stage_is_recorded_in_ops_runs(home, first_run):

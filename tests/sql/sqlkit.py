@@ -44,15 +44,23 @@ class Ledger:
             }
         )
 
-    def pay(self, customer_id: str, dates: list[date], amount: float, payer: str = "EMP-1", **kw) -> None:
+    def pay(
+        self,
+        customer_id: str,
+        dates: list[date],
+        amount: float,
+        payer: str = "EMP-1",
+        purpose_code="SALA",
+        **kw,
+    ) -> None:
         for d in dates:
             self.add(
                 customer_id,
                 d,
                 amount,
                 "CRDT",
-                purpose_code="SALA",
-                bank_txn_code="PMNT/RCDT/SALA",
+                purpose_code=purpose_code,
+                bank_txn_code="PMNT/RCDT/SALA" if purpose_code == "SALA" else "PMNT/RCDT/DMCT",
                 counterparty_id=payer,
                 **kw,
             )
@@ -117,9 +125,12 @@ def build_salary(con, window: dict = WINDOW, **payroll) -> None:
         "max_missed_runs": settings.payroll.max_missed_runs,
         "due_grace_days": settings.payroll.due_grace_days,
         "max_last_pay_change": settings.payroll.max_last_pay_change,
+        "pensions_observed": settings.payroll.pensions_observed,
     }
     for layer, name in (
         ("intermediate", "payroll_credits"),
+        ("intermediate", "pay_calendars"),
+        ("intermediate", "pay_calendar_matches"),
         ("intermediate", "pay_schedule_fits"),
         ("intermediate", "salary_streams"),
         ("features", "customer_label"),

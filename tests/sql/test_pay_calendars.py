@@ -198,8 +198,21 @@ def test_uncoded_credits_coded_as_something_else_are_not_pay(con, ledger):
         _uncoded(ledger, cid, dates, 500.0, "P-9", purpose_code="RENT")
     ledger.load()
     build_salary(con)
-    assert con.execute("select count(*) from intermediate.payroll_credits").fetchall() == [(0,)]
+    kinds = con.execute("select distinct income_kind from intermediate.payroll_credits").fetchall()
+    assert kinds == [("pension",)]  # the pension is read as a pension (below), never as pay
     assert _label(con)[0] == "no_pay"
+
+
+def test_a_pension_is_read_as_observed_income_but_never_a_salary_label(con, ledger):
+    # Purpose PENS on the 10th: Mon 10 Aug, Thu 10 Sep, Sat 10 Oct -> Fri 9 Oct.
+    ledger.pay("C1", [date(2026, 8, 10), date(2026, 9, 10), date(2026, 10, 9)], 1100.0, purpose_code="PENS")
+    ledger.load()
+    build_salary(con)
+    assert con.execute(
+        "select label_status, annual_salary, annual_pension from features.customer_label"
+    ).fetchall() == [("no_pay", None, pytest.approx(13_200.0))]
+    build_salary(con, pensions_observed=False)
+    assert con.execute("select annual_pension from features.customer_label").fetchall() == [(None,)]
 
 
 def test_an_employer_that_codes_salary_for_some_is_an_employer_for_all(con, ledger):

@@ -45,9 +45,21 @@ def test_payroll_is_recognised_by_purpose_or_sub_family(con, ledger):
     )  # paying staff
     ledger.add("C1", date(2026, 10, 5), 5.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT")  # no purpose code
     ledger.load()
-    run_sql_file(con, "intermediate", "payroll_credits", {**WINDOW, "salary_window_start": WINDOW["window_start"], "min_payer_customers": 3})
-    got = con.execute("select amount::double from intermediate.payroll_credits order by amount").fetchall()
-    assert got == [(1.0,), (2.0,)]
+    run_sql_file(
+        con,
+        "intermediate",
+        "payroll_credits",
+        {
+            **WINDOW,
+            "salary_window_start": WINDOW["window_start"],
+            "min_payer_customers": 3,
+            "pensions_observed": True,
+        },
+    )
+    got = con.execute(
+        "select amount::double, income_kind from intermediate.payroll_credits order by amount"
+    ).fetchall()
+    assert got == [(1.0, "salary"), (2.0, "salary"), (3.0, "pension")]  # PENS: a pension, never pay
 
 
 def test_a_txn_id_in_a_later_accepted_load_keeps_the_earlier_booking(con, ledger):

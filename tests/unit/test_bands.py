@@ -29,6 +29,19 @@ def test_band_table_labels_and_bounds():
     assert np.isnan(t.loc[0, "lower_bound"]) and np.isnan(t.loc[3, "upper_bound"])
 
 
+def test_observed_salary_wins_then_an_observed_pension_then_the_estimate():
+    import pandas as pd
+
+    from ledgerband.tasks.bands import income_to_publish
+
+    salary = pd.Series([50_000.0, None, None])
+    pension = pd.Series([12_000.0, 12_000.0, None])
+    estimate = pd.Series([1.0, 2.0, 30_000.004])
+    got = income_to_publish(salary, pension, estimate, EDGES)
+    assert got["income_value"].tolist() == [50_000.0, 12_000.0, 30_000.0]
+    assert got["band_index"].tolist() == [2, 0, 1]
+
+
 def test_band_agreement_counts_exact_and_adjacent_bands():
     y_true = np.array([10_000, 30_000, 50_000, 70_000])
     y_pred = np.array([12_000, 45_000, 10_000, 65_000])  # same, one up, two down, same
@@ -54,7 +67,8 @@ def test_published_band_sql_agrees_with_python_at_every_edge(con):
     rows = pd.DataFrame(
         {"run_id": "r1", "customer_id": [f"C{i}" for i in range(len(values))], "estimate": estimate}
     ).assign(annual_salary=observed)
-    rows = rows.join(income_to_publish(observed, estimate, EDGES))
+    no_pension = pd.Series([None] * len(values), dtype="float64")
+    rows = rows.join(income_to_publish(observed, no_pension, estimate, EDGES))
     con.register("rows", rows)
     con.execute("insert into ml.predictions by name select * from rows")
     insert_from_file(

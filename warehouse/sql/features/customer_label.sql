@@ -10,6 +10,8 @@
 --   no_pay       no pay credits in the window
 -- label_confidence: high when every stream is coded, complete and explained by three or more payments;
 -- medium otherwise (found by recurrence, a missed run, extras, or only two payments).
+-- Pension streams (when pensions count as observed income) never make a salary label; a customer's
+-- current, classified pensions add up to annual_pension.
 
 with
 
@@ -19,6 +21,19 @@ customers as (
 
 streams as (
     select * from intermediate.salary_streams
+    where income_kind = 'salary'
+),
+
+pensions as (
+    select
+        salary_streams.customer_id,
+        sum(salary_streams.annual_salary) as annual_pension
+    from intermediate.salary_streams
+    where
+        salary_streams.income_kind = 'pension'
+        and salary_streams.is_current
+        and salary_streams.status = 'classified'
+    group by salary_streams.customer_id
 ),
 
 per_customer as (
@@ -58,9 +73,11 @@ decided as (
         per_customer.main_pay_frequency,
         round(per_customer.annual_salary, 2) as annual_salary,
         coalesce(per_customer.bonus_amount, 0) as bonus_amount,
-        case when per_customer.all_high then 'high' else 'medium' end as label_confidence
+        case when per_customer.all_high then 'high' else 'medium' end as label_confidence,
+        round(pensions.annual_pension, 2) as annual_pension
     from customers
     left join per_customer on per_customer.customer_id = customers.customer_id
+    left join pensions on pensions.customer_id = customers.customer_id
 ),
 
 final as (
@@ -72,7 +89,8 @@ final as (
         case when decided.label_status = 'labelled' then decided.main_pay_frequency end as main_pay_frequency,
         case when decided.label_status = 'labelled' then decided.annual_salary end as annual_salary,
         decided.bonus_amount,
-        case when decided.label_status = 'labelled' then decided.label_confidence end as label_confidence
+        case when decided.label_status = 'labelled' then decided.label_confidence end as label_confidence,
+        decided.annual_pension
     from decided
 )
 

@@ -1,7 +1,8 @@
 -- intermediate.payroll_credits
--- Grain: one row per (customer_id, payer_id, booking_date) of pay credits. Key: those three.
+-- Grain: one row per (customer_id, payer_id, booking_date) of pay or pension credits. Key: those three.
 -- Reads: staging.transactions.
--- Parameters: $salary_window_start, $window_end (dates, inclusive), $min_payer_customers.
+-- Parameters: $salary_window_start, $window_end (dates, inclusive), $min_payer_customers,
+-- $pensions_observed.
 -- A credit is pay when the payer coded it as salary (ISO 20022 purpose SALA, or bank transaction
 -- sub-family SALA: is_coded), or when it is an uncoded received credit transfer from a payer that is an
 -- employer: one that codes salary to someone in the window, or that sends such uncoded transfers to at
@@ -9,6 +10,8 @@
 -- one customer). Not pay: anything with another purpose code (pension, benefit, interest, rent, refund…),
 -- card and cash credits, internal book transfers, and transfers from the customer's own accounts here.
 -- Whether uncoded pay arrives on a schedule is decided by intermediate.salary_streams.
+-- Pensions (purpose PENS) are read the same way, as their own streams (income_kind 'pension', payer_id
+-- prefixed 'pension:'), when $pensions_observed: published as observed income, never a salary label.
 -- Credits from one payer on one day are one payment (a salary split in two, or paid with a same-day
 -- bonus); credit_count keeps how many there were.
 
@@ -35,6 +38,7 @@ credits as (
         transactions.amount,
         coalesce(transactions.purpose_code = 'SALA' or transactions.btc_subfamily = 'SALA', false)
             as is_coded,
+        coalesce(transactions.purpose_code = 'PENS', false) as is_pension,
         transactions.purpose_code is null
         and transactions.btc_family = 'RCDT'
         and transactions.btc_subfamily <> 'BOOK'
@@ -61,7 +65,7 @@ payers as (
 pay as (
     select
         credits.*,
-        case when credits.is_coded then 'coded' else 'recurrence' end as found_by
+        'salary' as income_kind
     from credits
     left join payers on payers.counterparty_id = credits.counterparty_id
     where
@@ -70,18 +74,26 @@ pay as (
             credits.is_uncoded_transfer
             and (payers.codes_salary or payers.uncoded_customer_count >= $min_payer_customers)
         )
+    union all
+    select
+        credits.*,
+        'pension' as income_kind
+    from credits
+    where credits.is_pension and $pensions_observed
 ),
 
 final as (
     select
         customer_id,
-        coalesce(counterparty_id, 'payer not given') as payer_id,
+        case when income_kind = 'pension' then 'pension:' else '' end
+        || coalesce(counterparty_id, 'payer not given') as payer_id,
         booking_date,
+        income_kind,
         sum(amount) as amount,
         count(*)::bigint as credit_count,
-        bool_or(is_coded) as is_coded
+        bool_or(is_coded or is_pension) as is_coded
     from pay
-    group by customer_id, coalesce(counterparty_id, 'payer not given'), booking_date
+    group by all
 )
 
 select * from final

@@ -42,6 +42,7 @@ streams as (
     select
         credits.customer_id,
         credits.payer_id,
+        any_value(credits.income_kind) as income_kind,
         count(*)::bigint as payment_count,
         sum(credits.amount) as total_paid,
         max(credits.booking_date) as last_any_pay_date,
@@ -142,6 +143,7 @@ final as (
     select
         customer_id,
         payer_id,
+        income_kind,
         case when is_coded then 'coded' else 'recurrence' end as found_by,
         status,
         case when status = 'classified' then pattern end as pattern,

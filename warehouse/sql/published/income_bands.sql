@@ -2,7 +2,8 @@
 -- Grain: one row per customer in the run. Key: run_id, customer_id.
 -- Reads: ml.predictions, ref.income_bands.
 -- Parameters: $run_id, $period, $model_version, $published_at.
--- Observed salary wins over the model: a customer paid here is banded on what they are paid. The amount
+-- Observed salary wins over the model, then an observed pension: a customer paid here is banded on what
+-- they are paid. The amount
 -- (rounded to cents) and its band were set together by ledgerband.tasks.bands when the run trained, so
 -- the published amount and its band always agree; this file only looks the band up.
 
@@ -18,8 +19,11 @@ banded as (
     select
         predictions.customer_id,
         predictions.income_value,
-        case when predictions.annual_salary is not null then 'observed_salary' else 'model_estimate' end
-            as band_source,
+        case
+            when predictions.annual_salary is not null then 'observed_salary'
+            when predictions.observed_pension is not null then 'observed_pension'
+            else 'model_estimate'
+        end as band_source,
         bands.income_band
     from predictions
     inner join ref.income_bands as bands on bands.band_index = predictions.band_index
