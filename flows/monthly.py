@@ -82,8 +82,6 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> RunResult:
         )
         accuracy = log.run("accuracy_gate", accuracy_gate_task, ctx, train, detail=lambda d: d.reason)
         log.run("publish", publish_task, ctx, train, detail=lambda p: p.__dict__)
-        report = log.run("report", report_task, ctx, detail=str)
-        published_path = log.run("reader_copy", refresh_reader_copy_task, ctx, detail=str)
     except GateStopped as stop:
         # Every stop leaves its evidence: the report and the readers' copy show the decision.
         stop_with_report = stop.with_report(_best_effort(log, "report", report_task, ctx))
@@ -94,6 +92,14 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> RunResult:
         raise stop_with_report from None
     except BaseException as exc:
         log.finish(FAILED, f"{type(exc).__name__}: {exc}")
+        raise
+    # Published: nothing after this can unpublish the month, so ops.runs says published whatever follows;
+    # a report or readers' copy that fails is noted there and still fails the run (owners are alerted).
+    try:
+        report = log.run("report", report_task, ctx, detail=str)
+        published_path = log.run("reader_copy", refresh_reader_copy_task, ctx, detail=str)
+    except Exception as exc:
+        log.finish(PUBLISHED, f"published, but {log.stages[-1]['stage']} failed: {type(exc).__name__}: {exc}")
         raise
     log.finish(PUBLISHED)
     return RunResult(ctx.run_id, str(ctx.period), PUBLISHED, quality, accuracy, train, report, published_path)

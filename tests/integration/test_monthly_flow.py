@@ -306,3 +306,25 @@ def test_a_month_whose_payroll_codes_vanish_is_stopped_by_the_label_gate(prefect
         ("labels", "stop")
     ]
     assert _q(state, "select count(*) from published.snapshots") == [(0,)]
+
+
+def test_a_published_month_whose_readers_copy_fails_is_still_recorded_as_published(
+    home, first_run, demo, monkeypatch
+):
+    """Found in review: ops.runs said 'failed' for a month whose snapshot had become current."""
+    from prefect import task
+
+    import ledgerband.flows.monthly as monthly
+
+    @task(name="refresh-reader-copy")
+    def broken_copy(ctx):
+        raise PermissionError("published folder is read-only")
+
+    monkeypatch.setattr(monthly, "refresh_reader_copy_task", broken_copy)
+    with pytest.raises(PermissionError):
+        monthly.monthly_run("2026-10", demo.landing_dir)
+    [(run_id, status, error)] = _q(
+        home, "select run_id, status, error from ops.runs order by started_at desc limit 1"
+    )
+    assert status == "published" and "reader_copy failed: PermissionError" in error
+    assert _q(home, "select run_id from published.snapshots where is_current") == [(run_id,)]

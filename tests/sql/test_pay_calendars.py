@@ -278,3 +278,55 @@ def test_a_rise_on_the_last_pay_day_waits_a_month_for_a_label(con, ledger):
     build_salary(con)
     assert _label(con) == ("unsettled", None, None)
     assert _streams(con)[0][3] is True  # still current: it is paying
+
+
+# --- found in review -----------------------------------------------------------------------------------------
+
+
+def test_two_different_amounts_a_month_are_not_semi_monthly_pay(con, ledger):
+    # 1200 on the 15th and 1800 on the last day read as semi-monthly x 24 x 1800 = 43,200 (+20%): the halves
+    # of semi-monthly pay are the same pay, so two sizes a month get no label.
+    ledger.pay("C1", [date(2026, 8, 14), date(2026, 9, 15), date(2026, 10, 15)], 1200.0)
+    ledger.pay("C1", [date(2026, 8, 31), date(2026, 9, 30), date(2026, 10, 30)], 1800.0)
+    ledger.load()
+    build_salary(con)
+    assert _label(con)[0] != "labelled"
+
+
+def test_a_pension_sent_with_the_salary_sub_family_is_a_pension(con, ledger):
+    # The purpose code says what the payer meant (PENS); the sub-family SALA counts only without one.
+    for d in (date(2026, 8, 10), date(2026, 9, 10), date(2026, 10, 9)):
+        ledger.add(
+            "C1",
+            d,
+            1100.0,
+            "CRDT",
+            purpose_code="PENS",
+            bank_txn_code="PMNT/RCDT/SALA",
+            counterparty_id="GOV-1",
+        )
+    ledger.load()
+    build_salary(con)
+    assert con.execute("select label_status, annual_pension from features.customer_label").fetchall() == [
+        ("no_pay", pytest.approx(13_200.0))
+    ]
+
+
+def test_a_leaver_whose_employer_pays_early_is_not_current(con, ledger):
+    # Last business day of the month: Fri 30 May 2025 (31st a Saturday), Mon 30 Jun, Thu 31 Jul; then nothing.
+    # The next pay day, Sun 31 Aug, moves back to Fri 29 Aug like the May one did: 29 Aug + 2 days' grace is
+    # not after 31 Aug, so the stream has stopped (moving it forward to Mon 1 Sep kept a leaver labelled).
+    ledger.pay("C1", [date(2025, 5, 30), date(2025, 6, 30), date(2025, 7, 31)], 2500.0)
+    ledger.load()
+    build_salary(con, {"window_start": date(2025, 5, 1), "window_end": date(2025, 8, 31)})
+    assert _label(con)[0] == "ended"
+
+
+def test_pay_brought_forward_before_the_holidays_keeps_the_stream_current(con, ledger):
+    # Day 25: Fri 25 Sep, Sun 25 Oct -> Fri 23 Oct, Wed 25 Nov; December paid early on Fri 18 Dec (25 and 26
+    # Dec are holidays here). The calendar's December slot (Mon 28 Dec) is unpaid, but a payment came a week
+    # before it: that run was paid early, not missed.
+    ledger.pay("C1", [date(2026, 9, 25), date(2026, 10, 23), date(2026, 11, 25), date(2026, 12, 18)], 3000.0)
+    ledger.load()
+    build_salary(con, {"window_start": date(2026, 9, 1), "window_end": date(2026, 12, 31)})
+    assert _label(con)[:2] == ("labelled", pytest.approx(36_000.0))

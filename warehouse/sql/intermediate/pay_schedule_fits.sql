@@ -65,6 +65,9 @@ fits as (
         count(*) filter (where ranked.moved <> 0)::bigint as moved_count,
         -- an employer moves pay one way: back to the business day before, or forward to the one after
         count(distinct ranked.moved) filter (where ranked.moved <> 0) as move_directions,
+        max(ranked.moved) filter (where ranked.moved <> 0) as move_direction,
+        min(ranked.amount) as lowest_amount,
+        max(ranked.amount) as highest_amount,
         min(ranked.slot) as first_slot,
         max(ranked.slot) as last_slot,
         min(ranked.booking_date) as first_pay_date,
@@ -127,7 +130,13 @@ next_due as (
         one_to_one.payer_id,
         one_to_one.pattern,
         one_to_one.pattern_param,
-        min(calendar.next_business_day) as next_due_date
+        -- the next nominal pay day, moved the way this payer moves pay (forward when it never showed)
+        min(
+            case
+                when one_to_one.move_direction = -1 then calendar.prev_business_day
+                else calendar.next_business_day
+            end
+        ) as next_due_date
     from one_to_one
     inner join schedule
         on
@@ -162,7 +171,13 @@ final as (
         coalesce(one_to_one.amount_peak <= 1.25, false) as is_steady,
         -- Four-weekly pay is told from monthly pay only by three gaps that a monthly calendar cannot
         -- explain; with fewer, the fit still competes (and makes the stream ambiguous) but is not chosen.
-        (one_to_one.frequency <> 'four_weekly' or one_to_one.explained_count >= 4) as is_choosable
+        -- Two payments a month of different sizes (a salary and an allowance, two employers without a payer
+        -- id) are not semi-monthly pay: its halves are the same pay.
+        (one_to_one.frequency <> 'four_weekly' or one_to_one.explained_count >= 4)
+        and (
+            one_to_one.frequency <> 'semi_monthly'
+            or one_to_one.highest_amount <= 1.25 * one_to_one.lowest_amount
+        ) as is_choosable
     from one_to_one
     inner join frequencies on frequencies.frequency = one_to_one.frequency
     left join next_due

@@ -36,8 +36,13 @@ credits as (
         transactions.counterparty_id,
         transactions.booking_date,
         transactions.amount,
-        coalesce(transactions.purpose_code = 'SALA' or transactions.btc_subfamily = 'SALA', false)
-            as is_coded,
+        -- a purpose code says what the payer meant; the sub-family only counts when there is none (a
+        -- pension sent with sub-family SALA is a pension)
+        coalesce(
+            transactions.purpose_code = 'SALA'
+            or (transactions.purpose_code is null and transactions.btc_subfamily = 'SALA'),
+            false
+        ) as is_coded,
         coalesce(transactions.purpose_code = 'PENS', false) as is_pension,
         transactions.purpose_code is null
         and transactions.btc_family = 'RCDT'

@@ -160,8 +160,12 @@ final as (
         next_due_date,
         coalesce(
             case
+                -- not yet due; or a payment after the last explained one and at most ten days before
+                -- the next due day: that run paid early (December pay before the holidays)
                 when status in ('classified', 'unsettled')
-                    then next_due_date + $due_grace_days > $window_end::date
+                    then
+                        next_due_date + $due_grace_days > $window_end::date
+                        or (last_any_pay_date > last_pay_date and last_any_pay_date >= next_due_date - 10)
                 else last_any_pay_date >= $window_end::date - (35 + $due_grace_days)
             end,
             false
