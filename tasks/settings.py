@@ -24,8 +24,16 @@ from pydantic_settings import (
 
 
 def config_file() -> Path:
-    """The settings file: `LEDGERBAND_CONFIG`, else `ledgerband.toml` in the working directory."""
-    return Path(os.environ.get("LEDGERBAND_CONFIG", "ledgerband.toml"))
+    """The settings file: `LEDGERBAND_CONFIG`, else `ledgerband.toml` in the working directory (optional).
+
+    A file named by `LEDGERBAND_CONFIG` must exist: a typo in its path must not run on the defaults.
+    """
+    named = os.environ.get("LEDGERBAND_CONFIG")
+    if named is None:
+        return Path("ledgerband.toml")
+    if not Path(named).is_file():
+        raise ValueError(f"LEDGERBAND_CONFIG names {named}, which is not a file")
+    return Path(named)
 
 
 def default_home() -> Path:

@@ -76,3 +76,9 @@ def test_the_example_settings_file_says_exactly_the_defaults(monkeypatch, tmp_pa
         if sub:
             missing = sorted(set(sub) - set(written[section]))
             assert not missing, f"ledgerband.toml [{section}] does not show {missing}"
+
+
+def test_a_settings_file_named_but_missing_is_an_error_not_the_defaults(monkeypatch, tmp_path):
+    monkeypatch.setenv("LEDGERBAND_CONFIG", str(tmp_path / "ledgerbnad.toml"))  # a typo in the path
+    with pytest.raises(ValueError, match="LEDGERBAND_CONFIG names .*ledgerbnad.toml, which is not a file"):
+        Settings()
