@@ -121,6 +121,11 @@ def _print_result(result) -> None:
     out.print(table)
     out.print(f"[green]Accuracy gate passed:[/] {result.accuracy.reason}")
     out.print(f"Published tables (readers open this file): [bold]{result.published_path}[/]")
+    if not result.is_current:
+        out.print(
+            f"[yellow]{result.period} was published as a historical snapshot:[/] a later month's snapshot stays "
+            "current, so readers' income_bands did not move back in time."
+        )
     out.print(f"Working warehouse: {s.warehouse_path}  (published.income_bands, published.band_summary)")
     out.print(f"Run report: [bold]{result.report}[/]")
 

@@ -39,6 +39,7 @@ class RunResult:
     train: TrainSummary
     report: Path
     published_path: Path
+    is_current: bool  # false when a later month's snapshot stays current (a backfill)
 
 
 def ingest(ctx: RunContext) -> list[LoadResult]:
@@ -81,7 +82,7 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> RunResult:
             "train", train_task, ctx, detail=lambda t: {"champion": t.champion, "n_labelled": t.n_labelled}
         )
         accuracy = log.run("accuracy_gate", accuracy_gate_task, ctx, train, detail=lambda d: d.reason)
-        log.run("publish", publish_task, ctx, train, detail=lambda p: p.__dict__)
+        published = log.run("publish", publish_task, ctx, train, detail=lambda p: p.__dict__)
     except GateStopped as stop:
         # Every stop leaves its evidence: the report and the readers' copy show the decision.
         stop_with_report = stop.with_report(_best_effort(log, "report", report_task, ctx))
@@ -102,7 +103,17 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> RunResult:
         log.finish(PUBLISHED, f"published, but {log.stages[-1]['stage']} failed: {type(exc).__name__}: {exc}")
         raise
     log.finish(PUBLISHED)
-    return RunResult(ctx.run_id, str(ctx.period), PUBLISHED, quality, accuracy, train, report, published_path)
+    return RunResult(
+        ctx.run_id,
+        str(ctx.period),
+        PUBLISHED,
+        quality,
+        accuracy,
+        train,
+        report,
+        published_path,
+        published.is_current,
+    )
 
 
 def _best_effort(log: RunLog, stage: str, task_fn, *args):

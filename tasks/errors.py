@@ -20,12 +20,16 @@ class GateStopped(LedgerbandError):
     """
 
     exit_code = 3
+    # Checks of a file against its own contract: a failure is bad input (exit 2), not a gate's judgement.
+    BAD_INPUT_CHECKS = frozenset({"manifest_reconciliation", "extract_contract"})
 
     def __init__(self, gate: str, reason: str, check: str | None = None):
         super().__init__(f"{gate} gate stopped the run: {reason}")
         self.gate = gate
         self.reason = reason
         self.check = check
+        if check in self.BAD_INPUT_CHECKS:
+            self.exit_code = LedgerbandError.exit_code
 
     @property
     def run_status(self) -> str:

@@ -24,7 +24,7 @@ from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.retry import IO_RETRIES
 from ledgerband.tasks.train import TrainSummary
-from ledgerband.tasks.warehouse import open_warehouse, sql_model, transaction
+from ledgerband.tasks.warehouse import open_warehouse, scalar, sql_model, transaction
 
 READER_TABLES = {
     "income_bands": "select * from published.income_bands",
@@ -40,6 +40,7 @@ class PublishResult:
     run_id: str
     customers: int
     published_at: str
+    is_current: bool  # false for a month older than the current snapshot (a backfill)
 
 
 def insert_from_file(con: duckdb.DuckDBPyConnection, table: str, name: str, params: dict) -> None:
@@ -49,7 +50,8 @@ def insert_from_file(con: duckdb.DuckDBPyConnection, table: str, name: str, para
 
 
 def publish_snapshot(con: duckdb.DuckDBPyConnection, ctx: RunContext, model_version: str) -> PublishResult:
-    """Write and switch to a new snapshot. Returns its row counts."""
+    """Write a new snapshot and switch to it — unless it is for a month older than the current snapshot's:
+    a backfill adds a historical snapshot and never moves readers back in time. Returns its row counts."""
     settings, run_id, period = ctx.settings, ctx.run_id, str(ctx.period)
     published_at = datetime.now()
     params = {
@@ -79,12 +81,23 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, ctx: RunContext, model_vers
                 f"snapshot check failed: {band_rows} band rows, {distinct_customers} distinct customers, "
                 f"{customers} customers in features.customer, {summary_total} in the summary; nothing published"
             )
-        con.execute("update published.snapshots set is_current = false where is_current")
+        newest = scalar(con, "select max(period) from published.snapshots where is_current")
+        is_current = newest is None or period >= newest  # YYYY-MM sorts as time does
+        if is_current:
+            con.execute("update published.snapshots set is_current = false where is_current")
         con.execute(
-            "insert into published.snapshots values (?, ?, ?, ?, ?, true, ?)",
-            [run_id, period, model_version, json.dumps(list(settings.bands.edges)), band_rows, published_at],
+            "insert into published.snapshots values (?, ?, ?, ?, ?, ?, ?)",
+            [
+                run_id,
+                period,
+                model_version,
+                json.dumps(list(settings.bands.edges)),
+                band_rows,
+                is_current,
+                published_at,
+            ],
         )
-    return PublishResult(run_id, int(band_rows), published_at.isoformat(timespec="seconds"))
+    return PublishResult(run_id, int(band_rows), published_at.isoformat(timespec="seconds"), is_current)
 
 
 def export_reader_copy(con: duckdb.DuckDBPyConnection, target: Path) -> Path:

@@ -88,3 +88,40 @@ def test_published_band_sql_agrees_with_python_at_every_edge(con):
     assert [g[2] for g in got] == [
         "model_estimate" if i % 2 == 0 else "observed_salary" for i in range(len(values))
     ]
+
+
+def test_a_backfilled_month_never_moves_readers_back_in_time(con):
+    """Publishing 2026-09 after 2026-10 adds a historical snapshot; 2026-10 stays current (then 2026-11 moves on)."""
+    import pandas as pd
+
+    from ledgerband.tasks.bands import income_to_publish
+    from ledgerband.tasks.context import RunContext
+    from ledgerband.tasks.publish import publish_snapshot
+    from ledgerband.tasks.settings import Settings
+
+    con.execute("create schema if not exists features")
+    con.execute("create table features.customer as select 'C1' as customer_id, 'North Reach' as home_region")
+    current = []
+    for run_id, period in (("r-oct", "2026-10"), ("r-sep", "2026-09"), ("r-nov", "2026-11")):
+        salary, none = pd.Series([30_000.0]), pd.Series([None], dtype="float64")
+        rows = pd.DataFrame(
+            {"run_id": [run_id], "customer_id": ["C1"], "estimate": [1.0], "annual_salary": salary}
+        )
+        rows = rows.join(income_to_publish(salary, none, rows["estimate"], EDGES))
+        con.register("rows", rows)
+        con.execute("insert into ml.predictions by name select * from rows")
+        ctx = RunContext.create(period, settings=Settings(), run_id=run_id)
+        result = publish_snapshot(con, ctx, f"model-{period}")
+        current.append(
+            (
+                period,
+                result.is_current,
+                con.execute("select period from published.snapshots where is_current").fetchall(),
+            )
+        )
+    assert current == [
+        ("2026-10", True, [("2026-10",)]),
+        ("2026-09", False, [("2026-10",)]),  # the backfill is kept, not made current
+        ("2026-11", True, [("2026-11",)]),
+    ]
+    assert con.execute("select count(*) from published.snapshots").fetchall() == [(3,)]

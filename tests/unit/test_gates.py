@@ -145,5 +145,13 @@ def test_enforce_writes_alongside_work_in_the_same_transaction(con):
     assert con.execute("select count(*) from t").fetchall() == [(0,)]
 
 
+def test_a_file_that_breaks_its_own_contract_is_bad_input_not_a_gate_verdict():
+    # Exit codes: 2 bad input or configuration (manifest mismatches and header rules included), 3 a gate.
+    assert GateStopped("quality", "rows differ", check="manifest_reconciliation").exit_code == 2
+    assert GateStopped("quality", "header", check="extract_contract").exit_code == 2
+    assert GateStopped("quality", "too many bad records", check="quarantine_share").exit_code == 3
+    assert GateStopped("accuracy", "too weak", check="accuracy").exit_code == 3
+
+
 def test_an_accuracy_stop_withholds_the_month():
     assert GateStopped("accuracy", "too weak").run_status == "withheld"
