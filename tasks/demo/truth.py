@@ -66,7 +66,13 @@ def label_agreement(con, answers_path: Path, tolerance: float = 0.02) -> dict:
         }
 
     def by(column: str) -> dict:
-        return {str(k): shares(g) for k, g in salaried.groupby(column)}
+        # Customers with several current jobs (calendars joined by '+') are one group, not one per mix.
+        key = (
+            salaried[column]
+            .astype(str)
+            .where(~salaried[column].astype(str).str.contains("+", regex=False), "several_jobs")
+        )
+        return {str(k): shares(g) for k, g in salaried.groupby(key)}
 
     return {
         "salaried": shares(salaried),
