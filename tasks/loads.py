@@ -7,7 +7,7 @@ SHA-256 of its bytes: one accepted load per file, so a rerun loads nothing twice
 from __future__ import annotations
 
 import uuid
-from dataclasses import asdict, dataclass, field
+from dataclasses import dataclass, field
 from datetime import datetime
 from decimal import Decimal
 
@@ -41,9 +41,6 @@ class LoadResult:
     def is_new_extract(self) -> bool:
         """A ledger extract loaded by this run, waiting for validation."""
         return self.status == LOADED and self.period is not None
-
-    def to_dict(self) -> dict:
-        return asdict(self)
 
 
 def new_load_id() -> str:

@@ -152,9 +152,6 @@ class TrainSummary:
     within_one_band: float | None = None
     note: str | None = None
 
-    def to_dict(self) -> dict:
-        return asdict(self)
-
 
 def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainSummary:
     """Compare candidates, refit the champion, store scores and every customer's estimate in ml.*."""

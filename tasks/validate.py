@@ -15,7 +15,7 @@ import copy
 import json
 import logging
 from collections import defaultdict
-from dataclasses import asdict, dataclass, field
+from dataclasses import dataclass, field
 from datetime import datetime
 from functools import lru_cache
 from importlib import resources
@@ -175,9 +175,6 @@ class ValidationSummary:
     @property
     def quarantined_share(self) -> float:
         return self.rows_quarantined / self.rows_in_file if self.rows_in_file else 0.0
-
-    def to_dict(self) -> dict:
-        return {**asdict(self), "quarantined_share": self.quarantined_share}
 
 
 # The load's records with helper columns the suite's rules read: the parsed values (from the one parse

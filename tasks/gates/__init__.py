@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import json
 from collections.abc import Callable
-from dataclasses import asdict, dataclass, field
+from dataclasses import dataclass, field
 from datetime import datetime
 
 import duckdb
@@ -36,9 +36,6 @@ class Decision:
     figures: dict = field(default_factory=dict)
     thresholds: dict = field(default_factory=dict)
     subject: str = RUN
-
-    def to_dict(self) -> dict:
-        return asdict(self)
 
 
 def pct(x: float) -> str:
