@@ -111,12 +111,16 @@ def _settings():
 def _print_result(result) -> None:
     s = _settings()
     table = Table(title=f"Model comparison, period {result.period} (repeated k-fold CV)")
-    for col in ("candidate", "RMSE mean", "RMSE sd", "MAE mean"):
+    for col in ("candidate", "MAE mean", "MAE sd", "RMSE mean", "band accuracy"):
         table.add_column(col, justify="right" if col != "candidate" else "left")
-    for c in result.train.candidates:
+    for c in sorted(result.train.candidates, key=lambda c: c["mae_mean"]):
         mark = " (champion)" if c["name"] == result.train.champion else ""
         table.add_row(
-            c["name"] + mark, f"{c['rmse_mean']:,.0f}", f"{c['rmse_std']:,.0f}", f"{c['mae_mean']:,.0f}"
+            c["name"] + mark,
+            f"{c['mae_mean']:,.0f}",
+            f"{c['mae_std']:,.0f}",
+            f"{c['rmse_mean']:,.0f}",
+            f"{c['band_accuracy_mean']:.1%}",
         )
     out.print(table)
     out.print(f"[green]Accuracy gate passed:[/] {result.accuracy.reason}")
@@ -180,7 +184,8 @@ def demo(
     out.print(
         f"Demo truth check (only a synthetic bank can do this): for the {t['customers_estimated']} customers "
         f"the model estimated, RMSE {t['rmse']:,.0f}, MAE {t['mae']:,.0f}, mean error {t['mean_error']:+,.0f}, "
-        f"band accuracy {t['band_accuracy']:.1%}, within one band {t['within_one_band']:.1%}.",
+        f"band accuracy {t['band_accuracy']:.1%}, within one band {t['within_one_band']:.1%}; their "
+        f"intervals hold the true income for {t['interval_coverage']:.1%}.",
         soft_wrap=True,
     )
     _print_label_agreement(t["labels"])

@@ -48,18 +48,24 @@ def assign_band_index(values: np.ndarray | Sequence[float], edges: Sequence[floa
 
 
 def income_to_publish(
-    annual_salary: pd.Series, observed_pension: pd.Series, estimate: pd.Series, edges: Sequence[float]
+    annual_salary: pd.Series,
+    observed_pension: pd.Series,
+    estimate: pd.Series,
+    edges: Sequence[float],
+    estimate_unit: float = 0.01,
 ) -> pd.DataFrame:
     """The amount each customer is published with and its band.
 
-    Observed salary wins, then an observed pension, then the model's estimate. The amount is rounded to
-    cents before banding, so the published amount and its band always agree.
+    Observed salary wins, then an observed pension, then the model's estimate. Observed amounts are
+    rounded to cents; a model estimate to `estimate_unit` (its error is thousands: cents would be false
+    precision). Rounding happens before banding, so the published amount and its band always agree.
     """
+    rounded_estimate = (estimate.astype("float64") / estimate_unit).round() * estimate_unit
     value = (
         annual_salary.astype("float64")
         .fillna(observed_pension.astype("float64"))
-        .fillna(estimate.astype("float64"))
         .round(2)
+        .fillna(rounded_estimate.round(2))
     )
     return pd.DataFrame(
         {"income_value": value, "band_index": assign_band_index(value, edges).astype("int32")}

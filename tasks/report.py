@@ -53,7 +53,15 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
         "order by period, loaded_at",
         [window],
     )
-    models = _rows(con, "select * from ml.model_runs where run_id = ? order by rmse_mean", [run_id])
+    models = _rows(con, "select * from ml.model_runs where run_id = ? order by mae_mean", [run_id])
+    groups = _rows(
+        con,
+        "select * from ml.group_errors where run_id = ? order by attribute, group_name",
+        [run_id],
+    )
+    shift = _rows(con, "select * from ml.population_shift where run_id = ? order by feature", [run_id])
+    curve = _rows(con, "select * from ml.learning_curve where run_id = ? order by n_train", [run_id])
+    accuracy = next((d for d in decisions if d["gate"] == "accuracy"), None)
     bands = _rows(
         con,
         """
@@ -114,6 +122,10 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
         "quarantine": quarantine,
         "loads": loads,
         "models": models,
+        "groups": groups,
+        "shift": shift,
+        "shift_auc": accuracy["figures"].get("shift_auc") if accuracy else None,
+        "curve": curve,
         "bands": bands,
         "max_band_count": max([b["customers"] for b in bands] or [1]) or 1,
         "regions": regions,
@@ -123,6 +135,12 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
             "window_months": settings.features.window_months,
             "folds": settings.train.cv_folds,
             "repeats": settings.train.cv_repeats,
+            "interval_level": settings.intervals.level,
+            "interval_method": settings.intervals.method,
+            "interval_score": settings.intervals.conformity_score,
+            "round_to": settings.intervals.round_to,
+            "min_group_customers": settings.accuracy.min_group_customers,
+            "max_shift_auc": settings.accuracy.max_shift_auc,
             "currency": settings.bands.currency,
             "features": list(settings.train.numeric_features) + list(settings.train.categorical_features),
         },

@@ -2,7 +2,7 @@
 
 Read, in rising precedence, from the defaults below, `ledgerband.toml` (path in `LEDGERBAND_CONFIG`,
 else `ledgerband.toml` in the working directory), and `LEDGERBAND_*` environment variables (nested keys
-with `__`, e.g. `LEDGERBAND_ACCURACY__MIN_SKILL_OVER_BASELINE=0.3`). Unknown keys fail loudly.
+with `__`, e.g. `LEDGERBAND_ACCURACY__MIN_MAE_SKILL=0.3`). Unknown keys fail loudly.
 
 The defaults live here and only here; the repository's `ledgerband.toml` is the commented example, and
 a test proves it says the same as these defaults.
@@ -41,6 +41,10 @@ def default_home() -> Path:
     return Path(os.environ.get("LEDGERBAND_HOME", ".ledgerband")).absolute()
 
 
+# Models train.candidates may name (ledgerband.tasks.models builds each one).
+MODEL_NAMES = ("linear_regression", "ridge", "decision_tree", "random_forest", "gradient_boosting")
+
+
 class _Section(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
@@ -53,19 +57,82 @@ class QualitySettings(_Section):
 
 
 class AccuracySettings(_Section):
+    """The accuracy gate: skill over the baselines, judged on lower confidence bounds, and honest intervals."""
+
     min_labelled_customers: int = Field(200, ge=10)
-    min_skill_over_baseline: float = Field(0.20, ge=0, lt=1)
-    """1 - RMSE(champion) / RMSE(predict-the-mean), from repeated cross-validation."""
-    min_band_accuracy: float = Field(0.45, ge=0, le=1)
-    min_within_one_band: float = Field(0.85, ge=0, le=1)
+    confidence: float = Field(0.95, gt=0.5, lt=1)
+    """One-sided level of the lower bounds on skill (corrected resampled t, Nadeau & Bengio 2003)."""
+    min_mae_skill: float = Field(0.20, ge=0, lt=1)
+    """Lower bound of 1 - MAE(champion) / MAE(best baseline) across the repeated CV splits."""
+    min_band_skill: float = Field(0.20, ge=0, lt=1)
+    """Lower bound of (band accuracy - baseline's) / (1 - baseline's): the share of the baseline's misses fixed."""
+    coverage_tolerance: float = Field(0.05, gt=0, lt=1)
+    """Held-out interval coverage must lie within this of the nominal level."""
+    max_group_gap: float = Field(1.0, gt=0, le=1)
+    """Largest band-accuracy gap between groups of one attribute; 1.0 (the default): reported, not gated."""
+    min_group_customers: int = Field(30, ge=1)
+    """Groups smaller than this are shown but left out of the gap (too few to measure)."""
+    max_shift_auc: float = Field(0.75, gt=0.5, le=1)
+    """Warn when a classifier tells estimated from labelled customers apart with a higher AUC."""
+
+
+class IntervalSettings(_Section):
+    """Prediction intervals around each estimate (conformal, MAPIE)."""
+
+    level: float = Field(0.80, gt=0, lt=1)
+    method: str = Field("cv", pattern="^(cv|split)$")
+    """cv: the CV method (full-data model, out-of-fold scores); split: split conformal on a held-out part."""
+    conformity_score: str = Field("gamma", pattern="^(absolute|gamma)$")
+    """absolute: the same width for everyone; gamma: width proportional to the estimate."""
+    calibration_share: float = Field(0.25, gt=0, lt=1)
+    """Share of labelled customers held out to calibrate with the split method."""
+    round_to: float = Field(1_000, gt=0)
+    """Published model estimates and interval bounds are rounded to this unit (no false precision)."""
+
+
+class DriftSettings(_Section):
+    """Month-over-month drift of features, labels and band shares, and last month's model on this month."""
+
+    bins: int = Field(10, ge=2, le=100)
+    psi_warn: float = Field(0.10, gt=0)
+    psi_stop: float = Field(0.25, gt=0)
+    max_out_of_time_mae_rise: float = Field(0.25, gt=0)
+    """Warn when last month's model is this much worse on this month's labels than its own CV said."""
 
 
 class TrainSettings(_Section):
     cv_folds: int = Field(5, ge=2)
     cv_repeats: int = Field(3, ge=1)
     random_state: int = 20261101
-    tree_max_depth: int = Field(6, ge=1)
+    candidates: tuple[str, ...] = (
+        "linear_regression",
+        "ridge",
+        "decision_tree",
+        "random_forest",
+        "gradient_boosting",
+    )
+    """Models compared beside the two baselines (mean, median), which always run."""
+    tree_depths: tuple[int, ...] = (2, 3, 4, 6, 8, 10)
+    """Depths the decision tree chooses from by inner 3-fold CV."""
     tree_min_samples_leaf: int = Field(20, ge=1)
+    forest_trees: int = Field(60, ge=1)
+    forest_max_samples: float = Field(0.5, gt=0, le=1)
+    boosting_max_iter: int = Field(200, ge=1)
+    log_target: bool = False
+    """Fit every model on log(1 + income) and transform estimates back (multiplicative errors)."""
+    max_cv_customers: int = Field(20_000, ge=100)
+    """Above this many labelled customers the comparison runs on a band-stratified sample of this size;
+    the champion is still refitted on everyone."""
+    n_jobs: int = Field(2, ge=1)
+
+    @field_validator("candidates")
+    @classmethod
+    def _known_candidates(cls, v: tuple[str, ...]) -> tuple[str, ...]:
+        unknown = sorted(set(v) - set(MODEL_NAMES))
+        if unknown:
+            raise ValueError(f"unknown candidates {unknown}; known: {', '.join(MODEL_NAMES)}")
+        return v
+
     numeric_features: tuple[str, ...] = (
         "debits_per_week",
         "largest_debit",
@@ -185,6 +252,8 @@ class Settings(BaseSettings):
     owners: tuple[str, ...] = ("data-engineering@corrandale.example",)
     quality: QualitySettings = QualitySettings()
     accuracy: AccuracySettings = AccuracySettings()
+    intervals: IntervalSettings = IntervalSettings()
+    drift: DriftSettings = DriftSettings()
     train: TrainSettings = TrainSettings()
     bands: BandSettings = BandSettings()
     features: FeatureSettings = FeatureSettings()

@@ -1,10 +1,8 @@
-"""Train: compare candidate models of annual salary by repeated k-fold cross-validation.
+"""Train: compare the candidates, bound the champion's skill, put an interval on every estimate.
 
-Labelled customers are those whose salary is paid here (features.customer_salary). Every candidate is a
-Pipeline (one-hot encoding for categories, median imputation and scaling for numbers, then the model)
-and is scored on the same splits, so the comparison is paired. The champion (lowest mean RMSE) is
-refitted on all labelled customers and estimates every customer; its out-of-fold estimates give the
-band metrics the accuracy gate reads.
+Labelled customers are those whose salary is paid here (features.customer_salary). `evaluate` is the
+pure part (frames in, figures out; see ledgerband.tasks.models, .intervals and .assess); this module
+adds what needs the warehouse: reading the frame, writing ml.*, saving the champion and its card.
 """
 
 from __future__ import annotations
@@ -20,63 +18,33 @@ import numpy as np
 import pandas as pd
 from prefect import task
 from prefect.cache_policies import NO_CACHE
-from sklearn.compose import ColumnTransformer
-from sklearn.dummy import DummyRegressor
-from sklearn.impute import SimpleImputer
-from sklearn.linear_model import LinearRegression
-from sklearn.model_selection import KFold, RepeatedKFold, cross_val_predict, cross_validate
+from sklearn.base import clone
 from sklearn.pipeline import Pipeline
-from sklearn.preprocessing import OneHotEncoder, StandardScaler
-from sklearn.tree import DecisionTreeRegressor
 
-from ledgerband.tasks.bands import band_agreement, income_to_publish
+from ledgerband.tasks.assess import LearningCurve, group_errors, learning_curve_of, population_shift
+from ledgerband.tasks.bands import assign_band_index, income_to_publish
 from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.intervals import (
+    Intervals,
+    band_confidence,
+    covered,
+    fit_conformal,
+    held_out_intervals,
+    predict_intervals,
+    widen_to,
+)
+from ledgerband.tasks.models import (
+    BASELINES,
+    Comparison,
+    Skill,
+    compare,
+    comparison_sample,
+    final_model,
+    make_candidates,
+    skill,
+)
 from ledgerband.tasks.settings import Settings
 from ledgerband.tasks.warehouse import open_warehouse
-
-BASELINE = "baseline_mean"
-SCORING = {"rmse": "neg_root_mean_squared_error", "mae": "neg_mean_absolute_error"}
-
-
-@dataclass
-class CandidateScore:
-    name: str
-    rmse_mean: float
-    rmse_std: float
-    mae_mean: float
-    mae_std: float
-    rmse_by_split: list[float] = field(repr=False)
-    mae_by_split: list[float] = field(repr=False)
-
-
-def make_candidates(settings: Settings) -> dict[str, Pipeline]:
-    """The candidate models, each behind the same preprocessing."""
-    t = settings.train
-
-    def pipe(model) -> Pipeline:
-        pre = ColumnTransformer(
-            [
-                ("categorical", OneHotEncoder(handle_unknown="ignore"), list(t.categorical_features)),
-                (
-                    "numeric",
-                    Pipeline([("impute", SimpleImputer(strategy="median")), ("scale", StandardScaler())]),
-                    list(t.numeric_features),
-                ),
-            ]
-        )
-        return Pipeline([("prepare", pre), ("model", model)])
-
-    return {
-        BASELINE: pipe(DummyRegressor(strategy="mean")),
-        "linear_regression": pipe(LinearRegression()),
-        "decision_tree": pipe(
-            DecisionTreeRegressor(
-                max_depth=t.tree_max_depth,
-                min_samples_leaf=t.tree_min_samples_leaf,
-                random_state=t.random_state,
-            )
-        ),
-    }
 
 
 def model_frame(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
@@ -92,26 +60,140 @@ def model_frame(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
     ).df()
 
 
-def compare_candidates(X: pd.DataFrame, y: np.ndarray, settings: Settings) -> list[CandidateScore]:
-    """Repeated k-fold CV of every candidate on identical splits."""
-    t = settings.train
-    scores = []
-    for name, pipe in make_candidates(settings).items():
-        cv = RepeatedKFold(n_splits=t.cv_folds, n_repeats=t.cv_repeats, random_state=t.random_state)
-        res = cross_validate(pipe, X, y, cv=cv, scoring=SCORING, n_jobs=1)
-        rmse, mae = -res["test_rmse"], -res["test_mae"]
-        scores.append(
-            CandidateScore(
-                name,
-                float(rmse.mean()),
-                float(rmse.std(ddof=1)),
-                float(mae.mean()),
-                float(mae.std(ddof=1)),
-                rmse.tolist(),
-                mae.tolist(),
-            )
+@dataclass
+class Evaluation:
+    """Everything measured on the labelled customers, before anything is written."""
+
+    comparison: Comparison
+    skill: Skill
+    n_labelled: int
+    sample: np.ndarray = field(repr=False)  # positions (in the labelled rows) the comparison ran on
+    held_out: Intervals = field(repr=False)  # repeat-0 held-out estimate and interval, per sampled customer
+    coverage: float
+    coverage_by_band: pd.DataFrame
+    learning: LearningCurve | None
+
+    @property
+    def n_compared(self) -> int:
+        return len(self.sample)
+
+
+def evaluate(
+    X: pd.DataFrame,
+    y: np.ndarray,
+    settings: Settings,
+    *,
+    candidates: dict | None = None,
+    with_learning_curve: bool = True,
+) -> Evaluation:
+    """Compare the candidates on shared splits, bound the champion's skill, measure interval coverage."""
+    t, a, edges = settings.train, settings.accuracy, settings.bands.edges
+    y = np.asarray(y, dtype=float)
+    sample = comparison_sample(y, edges, t.max_cv_customers, t.random_state)
+    Xs, ys = X.iloc[sample], y[sample]
+    candidates = candidates if candidates is not None else make_candidates(settings)
+    comparison = compare(Xs, ys, settings, candidates)
+    sk = skill(comparison, a.confidence)
+    pipe = candidates[comparison.champion]
+    first_repeat = comparison.splits[: comparison.folds]
+    held = held_out_intervals(pipe, Xs, ys, settings, first_repeat)
+    hit = covered(ys, held)
+    by_band = (
+        pd.DataFrame(
+            {"band_index": assign_band_index(ys, edges), "covered": hit, "width": held.high - held.low}
         )
-    return scores
+        .groupby("band_index")
+        .agg(customers=("covered", "size"), coverage=("covered", "mean"), mean_width=("width", "mean"))
+        .reset_index()
+    )
+    learning = None
+    if with_learning_curve:
+        target = a.min_mae_skill + max(sk.mae_skill.mean - sk.mae_skill.lower, 0.0)
+        base_mae = comparison.results[sk.mae_baseline].mean("mae")
+        learning = learning_curve_of(pipe, Xs, ys, first_repeat, base_mae, target, len(y))
+    return Evaluation(comparison, sk, len(y), sample, held, float(np.mean(hit)), by_band, learning)
+
+
+@dataclass
+class TrainSummary:
+    """The figures the accuracy gate, the report and the CLI read (all from one evaluation)."""
+
+    run_id: str
+    period: str
+    n_customers: int
+    n_labelled: int
+    candidates: list[dict]
+    n_compared: int | None = None
+    champion: str | None = None
+    model_version: str | None = None
+    model_path: str | None = None
+    champion_mae: float | None = None
+    champion_rmse: float | None = None
+    mae_baseline: str | None = None
+    baseline_mae: float | None = None
+    mae_skill: float | None = None
+    mae_skill_lower: float | None = None
+    band_baseline: str | None = None
+    baseline_band_accuracy: float | None = None
+    band_accuracy: float | None = None
+    band_accuracy_lower: float | None = None
+    band_skill: float | None = None
+    band_skill_lower: float | None = None
+    within_one_band: float | None = None
+    interval_level: float | None = None
+    coverage: float | None = None
+    worst_band_coverage: float | None = None
+    largest_group_gap: float | None = None
+    largest_gap_attribute: str | None = None
+    worst_group_coverage: float | None = None
+    shift_auc: float | None = None
+    customers_needed: int | None = None
+    curve_flattened: bool | None = None
+    curve_advice: str | None = None
+    note: str | None = None
+
+    def figures(self) -> dict:
+        return {k: v for k, v in asdict(self).items() if k not in ("candidates", "run_id", "period")}
+
+
+def summarise(summary: TrainSummary, ev: Evaluation, settings: Settings) -> TrainSummary:
+    """Fill the summary's figures from an evaluation."""
+    r, sk = ev.comparison.results, ev.skill
+    champ = r[sk.champion]
+    summary.candidates = [
+        {
+            "name": c.name,
+            "is_baseline": c.name in BASELINES,
+            "rmse_mean": c.mean("rmse"),
+            "rmse_std": c.std("rmse"),
+            "mae_mean": c.mean("mae"),
+            "mae_std": c.std("mae"),
+            "band_accuracy_mean": c.mean("band_accuracy"),
+            "within_one_band_mean": c.mean("within_one_band"),
+        }
+        for c in r.values()
+    ]
+    summary.n_compared = ev.n_compared
+    summary.champion = sk.champion
+    summary.champion_mae = champ.mean("mae")
+    summary.champion_rmse = champ.mean("rmse")
+    summary.mae_baseline = sk.mae_baseline
+    summary.baseline_mae = r[sk.mae_baseline].mean("mae")
+    summary.mae_skill, summary.mae_skill_lower = sk.mae_skill.mean, sk.mae_skill.lower
+    summary.band_baseline = sk.band_baseline
+    summary.baseline_band_accuracy = sk.baseline_band_accuracy
+    summary.band_accuracy, summary.band_accuracy_lower = sk.band_accuracy.mean, sk.band_accuracy.lower
+    summary.band_skill, summary.band_skill_lower = sk.band_skill.mean, sk.band_skill.lower
+    summary.within_one_band = sk.within_one_band
+    summary.interval_level = settings.intervals.level
+    summary.coverage = ev.coverage
+    measured = ev.coverage_by_band[ev.coverage_by_band["customers"] >= settings.accuracy.min_group_customers]
+    summary.worst_band_coverage = float(measured["coverage"].min()) if len(measured) else None
+    if ev.learning is not None:
+        summary.customers_needed = ev.learning.customers_needed
+        summary.curve_flattened = ev.learning.flattened
+        summary.curve_advice = ev.learning.advice
+    return summary
 
 
 def code_version() -> dict[str, str]:
@@ -134,35 +216,17 @@ def code_version() -> dict[str, str]:
     return {"package_version": package, "git_sha": sha}
 
 
-@dataclass
-class TrainSummary:
-    run_id: str
-    period: str
-    n_customers: int
-    n_labelled: int
-    candidates: list[dict]
-    champion: str | None = None
-    model_version: str | None = None
-    model_path: str | None = None
-    baseline_rmse: float | None = None
-    champion_rmse: float | None = None
-    champion_mae: float | None = None
-    skill_over_baseline: float | None = None
-    band_accuracy: float | None = None
-    within_one_band: float | None = None
-    note: str | None = None
-
-
 def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainSummary:
-    """Compare candidates, refit the champion, store scores and every customer's estimate in ml.*."""
+    """Evaluate, refit the champion with its conformal intervals, store every figure in ml.*."""
     settings, run_id, period = ctx.settings, ctx.run_id, str(ctx.period)
-    t = settings.train
+    t, iv = settings.train, settings.intervals
     frame = model_frame(con)
     features = list(t.numeric_features) + list(t.categorical_features)
-    labelled = frame[frame["annual_salary"].notna()]
+    is_labelled = frame["annual_salary"].notna().to_numpy()
+    labelled = frame[is_labelled].reset_index(drop=True)
     X, y = labelled[features], labelled["annual_salary"].to_numpy(dtype=float)
     summary = TrainSummary(run_id, period, len(frame), len(labelled), candidates=[])
-    for table in ("ml.model_runs", "ml.cv_scores", "ml.predictions"):
+    for table in ML_TABLES:
         con.execute(f"delete from {table} where run_id = ?", [run_id])
     if len(labelled) < 2 * t.cv_folds:
         summary.note = (
@@ -170,66 +234,33 @@ def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainS
         )
         return summary
 
-    scores = compare_candidates(X, y, settings)
-    by_name = {s.name: s for s in scores}
-    champion = min(scores, key=lambda s: s.rmse_mean)
-    baseline = by_name[BASELINE]
-    pipe = make_candidates(settings)[champion.name]
-    oof = cross_val_predict(pipe, X, y, cv=KFold(t.cv_folds, shuffle=True, random_state=t.random_state))
-    oof = np.clip(oof, 0, None)
-    bands = band_agreement(y, oof, settings.bands.edges)
-    pipe.fit(X, y)
-    # An income cannot be negative; a linear model can extrapolate below zero.
-    estimate = np.clip(pipe.predict(frame[features]), 0, None)
+    ev = evaluate(X, y, settings)
+    summarise(summary, ev, settings)
+    candidates = make_candidates(settings)
+    champion = ev.comparison.champion
+    # The customers the model is for: neither salary nor pension observed.
+    is_estimated = (frame["annual_salary"].isna() & frame["annual_pension"].isna()).to_numpy()
+
+    sampled = labelled.iloc[ev.sample].reset_index(drop=True)
+    groups, gaps = group_errors(
+        sampled, y[ev.sample], ev.held_out.estimate, ev.held_out.low, ev.held_out.high, settings
+    )
+    summary.largest_group_gap = gaps["largest_band_accuracy_gap"]
+    summary.largest_gap_attribute = gaps["largest_gap_attribute"]
+    summary.worst_group_coverage = gaps["worst_coverage"]
+    shift = population_shift(labelled, frame[is_estimated], settings)
+    summary.shift_auc = shift.auc
+
+    # The champion on every labelled customer: the saved model and the conformal intervals.
+    conformal = fit_conformal(candidates[champion], X, y, settings)
+    pipe = final_model(clone(candidates[champion]).fit(X, y))
+    out = predict_intervals(conformal, frame[features])
 
     now = datetime.now()
-    model_version = f"{period}.{champion.name}.{run_id[:8]}"
-    con.executemany(
-        "insert into ml.model_runs values (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-        [
-            [
-                run_id,
-                period,
-                s.name,
-                s.rmse_mean,
-                s.rmse_std,
-                s.mae_mean,
-                s.mae_std,
-                len(labelled),
-                len(s.rmse_by_split),
-                s.name == champion.name,
-                now,
-            ]
-            for s in scores
-        ],
-    )
-    con.executemany(
-        "insert into ml.cv_scores values (?, ?, ?, ?, ?)",
-        [
-            [run_id, s.name, i, r, m]
-            for s in scores
-            for i, (r, m) in enumerate(zip(s.rmse_by_split, s.mae_by_split, strict=True))
-        ],
-    )
-    oof_by_customer = pd.Series(oof, index=labelled["customer_id"])
-    predictions = pd.DataFrame(
-        {
-            "run_id": run_id,
-            "customer_id": frame["customer_id"],
-            "estimate": estimate,
-            "oof_estimate": frame["customer_id"].map(oof_by_customer).astype("float64"),
-            "annual_salary": frame["annual_salary"].astype("float64"),
-            "observed_pension": frame["annual_pension"].astype("float64"),
-        }
-    )
-    predictions = predictions.join(
-        income_to_publish(
-            predictions["annual_salary"],
-            predictions["observed_pension"],
-            predictions["estimate"],
-            settings.bands.edges,
-        )
-    )
+    model_version = f"{period}.{champion}.{run_id[:8]}"
+    _write_scores(con, run_id, period, ev, now)
+    _write_assessment(con, run_id, groups, ev, shift)
+    predictions = _prediction_rows(run_id, frame, is_labelled, ev, out, settings)
     con.register("prediction_rows", predictions)
     con.execute("insert into ml.predictions by name select * from prediction_rows")
     con.unregister("prediction_rows")
@@ -242,33 +273,175 @@ def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainS
             "run_id": run_id,
             "period": period,
             "training_window_months": settings.features.window_months,
-            "champion": champion.name,
+            "champion": champion,
             "features": features,
             "protected_attributes_excluded": list(t.protected_attributes),
             "n_labelled": len(labelled),
+            "n_compared": ev.n_compared,
             "cv": {"folds": t.cv_folds, "repeats": t.cv_repeats, "random_state": t.random_state},
-            "metrics": {s.name: {"rmse_mean": s.rmse_mean, "mae_mean": s.mae_mean} for s in scores},
-            "band_metrics_out_of_fold": bands,
+            "candidates": summary.candidates,
+            "skill": {
+                "confidence": settings.accuracy.confidence,
+                "mae_skill": ev.skill.mae_skill.as_dict(),
+                "band_skill": ev.skill.band_skill.as_dict(),
+                "band_accuracy": ev.skill.band_accuracy.as_dict(),
+                "within_one_band": ev.skill.within_one_band,
+            },
+            "intervals": {
+                "level": iv.level,
+                "method": iv.method,
+                "conformity_score": iv.conformity_score,
+                "held_out_coverage": ev.coverage,
+                "coverage_by_band": ev.coverage_by_band.to_dict(orient="records"),
+            },
+            "groups": gaps,
+            "population_shift_auc": shift.auc,
             **code_version(),
             "created_at": now.isoformat(timespec="seconds"),
         },
     )
-    summary.candidates = [{k: v for k, v in asdict(s).items() if not k.endswith("_by_split")} for s in scores]
-    summary.champion = champion.name
     summary.model_version = model_version
     summary.model_path = str(model_path)
-    summary.baseline_rmse = baseline.rmse_mean
-    summary.champion_rmse = champion.rmse_mean
-    summary.champion_mae = champion.mae_mean
-    summary.skill_over_baseline = 1 - champion.rmse_mean / baseline.rmse_mean if baseline.rmse_mean else 0.0
-    summary.band_accuracy = bands["band_accuracy"]
-    summary.within_one_band = bands["within_one_band"]
     return summary
 
 
-# Types skops does not trust by default that our candidate pipelines contain: OneHotEncoder keeps its
-# output dtype (numpy.dtype); a decision tree keeps its tree structure. Never pass get_untrusted_types().
-TRUSTED_TYPES = ["numpy.dtype", "sklearn.tree._tree.Tree"]
+ML_TABLES = (
+    "ml.model_runs",
+    "ml.cv_scores",
+    "ml.predictions",
+    "ml.group_errors",
+    "ml.learning_curve",
+    "ml.population_shift",
+)
+
+
+def _write_scores(con: duckdb.DuckDBPyConnection, run_id: str, period: str, ev: Evaluation, now: datetime):
+    comparison, champion = ev.comparison, ev.comparison.champion
+    runs = pd.DataFrame(
+        [
+            {
+                "run_id": run_id,
+                "period": period,
+                "candidate": c.name,
+                "rmse_mean": c.mean("rmse"),
+                "rmse_std": c.std("rmse"),
+                "mae_mean": c.mean("mae"),
+                "mae_std": c.std("mae"),
+                "band_accuracy_mean": c.mean("band_accuracy"),
+                "within_one_band_mean": c.mean("within_one_band"),
+                "n_labelled": ev.n_labelled,
+                "n_compared": ev.n_compared,
+                "n_folds": len(c.rmse),
+                "is_baseline": c.name in BASELINES,
+                "is_champion": c.name == champion,
+                "created_at": now,
+            }
+            for c in comparison.results.values()
+        ]
+    )
+    scores = pd.DataFrame(
+        [
+            {
+                "run_id": run_id,
+                "candidate": c.name,
+                "split_index": i,
+                "repeat_index": i // comparison.folds,
+                "fold_index": i % comparison.folds,
+                "rmse": c.rmse[i],
+                "mae": c.mae[i],
+                "band_accuracy": c.band_accuracy[i],
+                "within_one_band": c.within_one_band[i],
+            }
+            for c in comparison.results.values()
+            for i in range(len(c.rmse))
+        ]
+    )
+    for table, rows in (("ml.model_runs", runs), ("ml.cv_scores", scores)):
+        con.register("score_rows", rows)
+        con.execute(f"insert into {table} by name select * from score_rows")
+        con.unregister("score_rows")
+
+
+def _write_assessment(con, run_id: str, groups: pd.DataFrame, ev: Evaluation, shift) -> None:
+    bands = ev.coverage_by_band.assign(
+        attribute="observed_band",
+        group_name=lambda d: "B" + (d["band_index"] + 1).astype(str),
+        in_gap=False,
+    ).drop(columns=["band_index", "mean_width"])
+    tables = {
+        "ml.group_errors": pd.concat([groups, bands], ignore_index=True),
+        "ml.population_shift": shift.table,
+    }
+    if ev.learning is not None:
+        tables["ml.learning_curve"] = ev.learning.table
+    for table, rows in tables.items():
+        con.register("assessment_rows", rows.assign(run_id=run_id))
+        con.execute(f"insert into {table} by name select * from assessment_rows")
+        con.unregister("assessment_rows")
+
+
+def _prediction_rows(
+    run_id: str,
+    frame: pd.DataFrame,
+    is_labelled: np.ndarray,
+    ev: Evaluation,
+    out: Intervals,
+    settings: Settings,
+) -> pd.DataFrame:
+    """One row per customer: estimate and interval, held-out figures for the labelled, the published amount."""
+    iv, edges = settings.intervals, settings.bands.edges
+    n = len(frame)
+    labelled_positions = np.flatnonzero(is_labelled)
+    oof, oof_low, oof_high = (np.full(n, np.nan) for _ in range(3))
+    sampled = labelled_positions[ev.sample]
+    oof[sampled], oof_low[sampled], oof_high[sampled] = (
+        ev.held_out.estimate,
+        ev.held_out.low,
+        ev.held_out.high,
+    )
+    low, high = widen_to(out.low, out.high, iv.round_to)
+    rows = pd.DataFrame(
+        {
+            "run_id": run_id,
+            "customer_id": frame["customer_id"],
+            "estimate": out.estimate,
+            "estimate_low": low,
+            "estimate_high": high,
+            "oof_estimate": oof,
+            "oof_low": oof_low,
+            "oof_high": oof_high,
+            "annual_salary": frame["annual_salary"].astype("float64"),
+            "observed_pension": frame["annual_pension"].astype("float64"),
+        }
+    )
+    rows = rows.join(
+        income_to_publish(
+            rows["annual_salary"],
+            rows["observed_pension"],
+            rows["estimate"],
+            edges,
+            estimate_unit=iv.round_to,
+        )
+    )
+    rows["band_confidence"] = band_confidence(
+        rows["estimate_low"].to_numpy(),
+        rows["estimate_high"].to_numpy(),
+        rows["band_index"].to_numpy(),
+        edges,
+    )
+    observed = rows["annual_salary"].notna() | rows["observed_pension"].notna()
+    rows.loc[observed, ["estimate_low", "estimate_high", "band_confidence"]] = np.nan
+    return rows
+
+
+# Types skops does not trust by default that our saved champions contain: OneHotEncoder keeps its output
+# dtype (numpy.dtype); trees and forests keep tree structures; histogram boosting its tree predictors.
+# A test saves every candidate and checks this list covers it. Never pass get_untrusted_types().
+TRUSTED_TYPES = [
+    "numpy.dtype",
+    "sklearn.tree._tree.Tree",
+    "sklearn.ensemble._hist_gradient_boosting.predictor.TreePredictor",
+]
 
 
 def load_model(path: Path) -> Pipeline:

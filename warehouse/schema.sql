@@ -144,6 +144,54 @@ alter table ml.predictions add column if not exists band_index integer;
 -- A pension read from its credits (payroll.pensions_observed), published as observed income.
 alter table ml.predictions add column if not exists observed_pension double;
 
+-- Intervals and held-out figures (ledgerband.tasks.intervals): the interval around every estimate,
+-- rounded outwards to intervals.round_to; for labelled customers in the comparison, the estimate and
+-- interval of a conformal model that never saw them (coverage is measured on these).
+alter table ml.predictions add column if not exists estimate_low double;
+alter table ml.predictions add column if not exists estimate_high double;
+alter table ml.predictions add column if not exists band_confidence double;
+alter table ml.predictions add column if not exists oof_low double;
+alter table ml.predictions add column if not exists oof_high double;
+alter table ml.model_runs add column if not exists band_accuracy_mean double;
+alter table ml.model_runs add column if not exists within_one_band_mean double;
+alter table ml.model_runs add column if not exists n_compared bigint;
+alter table ml.model_runs add column if not exists is_baseline boolean;
+alter table ml.cv_scores add column if not exists repeat_index bigint;
+alter table ml.cv_scores add column if not exists fold_index bigint;
+alter table ml.cv_scores add column if not exists band_accuracy double;
+alter table ml.cv_scores add column if not exists within_one_band double;
+
+-- Grain: one row per (run_id, attribute, group_name). Out-of-fold error of the champion by group
+-- (Fairlearn MetricFrame); attribute 'observed_band' holds interval coverage per observed band.
+create table if not exists ml.group_errors (
+    run_id varchar not null,
+    attribute varchar not null,            -- sex | age_band | home_region | observed_band
+    group_name varchar not null,
+    customers bigint not null,
+    mae double,
+    mean_error double,                     -- estimate minus observed: positive = overestimates
+    band_accuracy double,
+    coverage double,                       -- share of observed salaries inside the held-out interval
+    in_gap boolean not null                -- counted in the largest gap (enough customers)
+);
+
+-- Grain: one row per (run_id, n_train): the champion's held-out MAE learning from n_train customers.
+create table if not exists ml.learning_curve (
+    run_id varchar not null,
+    n_train bigint not null,
+    mae_mean double not null,
+    mae_std double
+);
+
+-- Grain: one row per (run_id, feature): labelled vs estimated customers, standardised mean difference.
+create table if not exists ml.population_shift (
+    run_id varchar not null,
+    feature varchar not null,
+    labelled_mean double,
+    estimated_mean double,
+    standardised_difference double
+);
+
 -- One row per run, gate, check and subject: the decision and every figure behind it (JSON).
 create table if not exists published.decisions (
     run_id varchar not null,
@@ -180,6 +228,11 @@ create table if not exists published.income_bands_history (
     model_version varchar not null,
     published_at timestamp not null
 );
+
+-- A model estimate's interval at intervals.level and the share of it inside the published band.
+alter table published.income_bands_history add column if not exists estimate_low decimal(18, 2);
+alter table published.income_bands_history add column if not exists estimate_high decimal(18, 2);
+alter table published.income_bands_history add column if not exists band_confidence decimal(3, 2);
 
 create table if not exists published.band_summary_history (
     run_id varchar not null,

@@ -18,7 +18,8 @@ def truth_check(con, answers_path: Path, run_id: str, edges: tuple[float, ...]) 
     """
     answers = pd.read_csv(answers_path, dtype={"customer_id": str})
     pred = con.execute(
-        "select customer_id, estimate, annual_salary, observed_pension from ml.predictions where run_id = ?",
+        "select customer_id, estimate, estimate_low, estimate_high, annual_salary, observed_pension "
+        "from ml.predictions where run_id = ?",
         [run_id],
     ).df()
     m = pred.merge(answers, on="customer_id")
@@ -34,6 +35,15 @@ def truth_check(con, answers_path: Path, run_id: str, edges: tuple[float, ...]) 
         "mean_true_income": float(estimated["true_annual_income"].mean()) if len(err) else float("nan"),
         "band_accuracy": float(np.mean(t == p)) if len(err) else float("nan"),
         "within_one_band": float(np.mean(np.abs(t - p) <= 1)) if len(err) else float("nan"),
+        # The intervals on the customers they are for (cross-validation can only check the labelled).
+        "interval_coverage": float(
+            np.mean(
+                (estimated["true_annual_income"] >= estimated["estimate_low"])
+                & (estimated["true_annual_income"] <= estimated["estimate_high"])
+            )
+        )
+        if len(err)
+        else float("nan"),
     }
 
 

@@ -38,8 +38,8 @@ class Decision:
     subject: str = RUN
 
 
-def pct(x: float) -> str:
-    return f"{100 * x:.2f}%"
+def pct(x: float | None) -> str:
+    return "n/a" if x is None else f"{100 * x:.2f}%"
 
 
 def record(con: duckdb.DuckDBPyConnection, ctx: RunContext, decision: Decision) -> None:

@@ -90,6 +90,43 @@ def test_a_month_publishes_one_band_row_per_customer(home, first_run):
     assert sources["observed_pension"] > 0
 
 
+def test_model_estimates_carry_an_interval_and_band_confidence(home, first_run):
+    rows = _q(
+        home,
+        "select band_source, count(*), count(estimate_low), count(band_confidence), "
+        "bool_and(estimate_low <= annual_income_estimate and annual_income_estimate <= estimate_high), "
+        "bool_and(annual_income_estimate % 1000 = 0), min(band_confidence), max(band_confidence) "
+        "from published.income_bands group by all order by all",
+    )
+    by_source = {r[0]: r[1:] for r in rows}
+    n, lows, confs, inside, rounded, lo_conf, hi_conf = by_source["model_estimate"]
+    assert n == lows == confs and inside and rounded and 0 <= lo_conf <= hi_conf <= 1
+    for observed in ("observed_salary", "observed_pension"):
+        assert by_source[observed][1:3] == (0, 0)  # observed amounts carry no interval
+
+
+def test_error_by_group_and_population_shift_are_kept_and_reported(home, first_run):
+    attributes = {
+        a
+        for (a,) in _q(
+            home, "select distinct attribute from ml.group_errors where run_id = ?", [first_run.run_id]
+        )
+    }
+    assert attributes == {"sex", "age_band", "home_region", "observed_band"}
+    # Every labelled customer in the comparison is counted once per attribute.
+    per_attribute = _q(
+        home,
+        "select attribute, sum(customers) from ml.group_errors where run_id = ? group by all",
+        [first_run.run_id],
+    )
+    assert len({total for _, total in per_attribute}) == 1
+    features = _q(home, "select count(*) from ml.population_shift where run_id = ?", [first_run.run_id])[0][0]
+    assert features == 7
+    html = first_run.report.read_text()
+    for heading in ("How sure the estimates are", "Error by group", "Population shift", "Learning curve"):
+        assert heading in html
+
+
 def test_every_stage_is_recorded_in_ops_runs(home, first_run):
     [(status, stages)] = _q(home, "select status, stages from ops.runs where run_id = ?", [first_run.run_id])
     stages = json.loads(stages)
@@ -174,18 +211,18 @@ def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(home, first_
     from ledgerband.tasks.settings import get_settings
 
     current = _q(home, "select run_id from published.snapshots where is_current")
-    monkeypatch.setenv("LEDGERBAND_ACCURACY__MIN_BAND_ACCURACY", "0.999")
+    monkeypatch.setenv("LEDGERBAND_ACCURACY__MIN_BAND_SKILL", "0.99")
     get_settings.cache_clear()
     with pytest.raises(
         GateStopped,
-        match="accuracy gate stopped the run: .*band accuracy .* < accuracy.min_band_accuracy 99.90%",
+        match="accuracy gate stopped the run: .*band-accuracy skill .*lower bound.* < accuracy.min_band_skill 99.00%",
     ):
         monthly_run("2026-10", demo.landing_dir)
     assert _q(home, "select run_id from published.snapshots where is_current") == current
     [(status, error)] = _q(home, "select status, error from ops.runs order by started_at desc limit 1")
-    assert status == "withheld" and "min_band_accuracy" in error
+    assert status == "withheld" and "min_band_skill" in error
     alerts = [json.loads(line) for line in (home / "alerts" / "alerts.jsonl").read_text().splitlines()]
-    assert alerts[-1]["state"] == "Failed" and "min_band_accuracy" in alerts[-1]["message"]
+    assert alerts[-1]["state"] == "Failed" and "min_band_skill" in alerts[-1]["message"]
     assert "Withheld by the accuracy gate" in (home / "reports" / "2026-10" / "index.html").read_text()
     # Readers see the withheld decision next to the unchanged current snapshot.
     reader = duckdb.connect(str(home / "published" / "ledgerband_published.duckdb"), read_only=True)

@@ -1,14 +1,17 @@
-"""Our model comparison checked against outside references."""
+"""Our model comparison, skill bounds and intervals checked against outside references."""
 
 from __future__ import annotations
 
 import numpy as np
 import pandas as pd
 import pytest
+from sklearn.base import BaseEstimator, RegressorMixin
+from sklearn.metrics import mean_absolute_error, root_mean_squared_error
 from sklearn.model_selection import RepeatedKFold
+from sklearn.pipeline import Pipeline
 
+from ledgerband.tasks.models import compare, lower_bound, make_candidates, preparation
 from ledgerband.tasks.settings import Settings
-from ledgerband.tasks.train import compare_candidates, make_candidates
 
 LONGLEY_X = ["GNPDEFL", "GNP", "UNEMP", "ARMED", "POP", "YEAR"]
 
@@ -20,22 +23,24 @@ def _longley():
     return data[LONGLEY_X], data["TOTEMP"].to_numpy()
 
 
-def _settings_for(numeric: list[str], categorical: tuple[str, ...] = ()) -> Settings:
+def _settings_for(numeric: list[str], categorical: tuple[str, ...] = (), **train) -> Settings:
     return Settings(
         train={
             "numeric_features": tuple(numeric),
             "categorical_features": categorical,
             "cv_folds": 4,
             "cv_repeats": 2,
+            **train,
         }
     )
 
 
-def test_linear_candidate_reproduces_the_nist_longley_certified_fit():
-    # Source: NIST StRD, Longley linear regression (certified values; quoted from memory and checked
-    # against statsmodels OLS below). Longley is ill-conditioned: a naive solver loses digits here.
+def test_linear_candidate_reproduces_the_nist_longley_certified_coefficients():
+    # Source: NIST StRD, Longley linear regression, certified values (quoted from memory; the data are the
+    # copy statsmodels ships, and statsmodels OLS agrees below). Longley is ill-conditioned: a naive
+    # solver loses digits here. The linear candidate sees unscaled inputs, so its coefficients are the
+    # certified ones themselves.
     certified = {
-        "const": -3482258.63459582,
         "GNPDEFL": 15.0618722713733,
         "GNP": -0.358191792925910e-01,
         "UNEMP": -2.02022980381683,
@@ -43,14 +48,16 @@ def test_linear_candidate_reproduces_the_nist_longley_certified_fit():
         "POP": -0.511041056535807e-01,
         "YEAR": 1829.15146461355,
     }
+    certified_intercept = -3482258.63459582
     certified_residual_sd = 304.854073561965
     X, y = _longley()
     pipe = make_candidates(_settings_for(LONGLEY_X))["linear_regression"].fit(X, y)
+    model = pipe.named_steps["model"]
+    np.testing.assert_allclose(model.coef_, [certified[c] for c in LONGLEY_X], rtol=1e-8)
+    assert model.intercept_ == pytest.approx(certified_intercept, rel=1e-8)
     fitted = pipe.predict(X)
-    expected = certified["const"] + X.to_numpy() @ np.array([certified[c] for c in LONGLEY_X])
-    np.testing.assert_allclose(fitted, expected, rtol=1e-9)
     residual_sd = np.sqrt(np.sum((y - fitted) ** 2) / (len(y) - len(LONGLEY_X) - 1))
-    assert residual_sd == pytest.approx(certified_residual_sd, rel=1e-7)
+    assert residual_sd == pytest.approx(certified_residual_sd, rel=1e-8)
 
 
 def test_linear_candidate_matches_statsmodels_ols():
@@ -63,45 +70,114 @@ def test_linear_candidate_matches_statsmodels_ols():
     np.testing.assert_allclose(pipe.predict(X), ols.fittedvalues, rtol=1e-9)
 
 
-def test_cv_scores_are_rmse_and_mae_on_identical_splits():
-    # Reference: RMSE = sqrt(mean((y - yhat)^2)) and MAE = mean(|y - yhat|), recomputed with numpy on the
-    # splits RepeatedKFold yields for the configured seed; the baseline predicts the training-fold mean.
+class _Recorder(RegressorMixin, BaseEstimator):
+    """Remembers which customers it was fitted on (by their unique labels) in a class-wide log.
+
+    The log is on the class: `clone` deep-copies parameters, so a list passed in would not be shared."""
+
+    log: list = []
+
+    def __init__(self, name: str = ""):
+        self.name = name
+
+    def fit(self, X, y):
+        _Recorder.log.append((self.name, tuple(np.sort(y))))
+        self.mean_ = float(np.mean(y))
+        return self
+
+    def predict(self, X):
+        return np.full(len(X), self.mean_)
+
+
+@pytest.mark.parametrize("shared_preparation", [True, False])
+def test_every_candidate_is_fitted_on_identical_splits(shared_preparation):
+    # Would fail if one candidate drew its own splits: each fit's training customers are recorded (each
+    # customer's label is unique). Both paths: Pipelines sharing a preparation, and bare estimators.
+    rng = np.random.default_rng(3)
+    X = pd.DataFrame({"a": rng.normal(size=50), "region": rng.choice(["N", "S"], 50)})
+    y = rng.permutation(np.arange(30_000.0, 30_050.0))
+    s = _settings_for(["a"], ("region",))
+    _Recorder.log.clear()
+    names = ("first", "second", "third")
+    if shared_preparation:
+        candidates = {
+            n: Pipeline([("prepare", preparation(s.train)), ("model", _Recorder(n))]) for n in names
+        }
+    else:
+        candidates = {n: _Recorder(n) for n in names}
+    result = compare(X, y, s, candidates)
+    by_candidate = {name: [rows for n, rows in _Recorder.log if n == name] for name in names}
+    assert len(by_candidate["first"]) == 8  # 4 folds x 2 repeats
+    assert by_candidate["first"] == by_candidate["second"] == by_candidate["third"]
+    # And they are the splits scikit-learn's RepeatedKFold yields for the configured seed.
+    expected = RepeatedKFold(n_splits=4, n_repeats=2, random_state=s.train.random_state).split(X)
+    assert by_candidate["first"] == [tuple(np.sort(y[train])) for train, _ in expected]
+    assert set(result.results) == set(names)
+
+
+def test_shared_preparation_gives_the_same_scores_as_whole_pipelines():
+    # The shortcut (prepare once per split) must equal fitting each scikit-learn Pipeline on its own.
+    rng = np.random.default_rng(5)
+    X = pd.DataFrame(
+        {"a": rng.normal(size=80), "b": rng.normal(size=80), "region": rng.choice(["N", "S"], 80)}
+    )
+    X.loc[::7, "b"] = np.nan
+    y = 45_000 + 9_000 * X["a"].to_numpy() + rng.normal(0, 4_000, 80)
+    s = _settings_for(["a", "b"], ("region",), candidates=("linear_regression", "decision_tree"))
+    fast = compare(X, y, s)
+    whole = compare(X, y, s, {n: Pipeline([("only", p)]) for n, p in make_candidates(s).items()})
+    for name, r in fast.results.items():
+        np.testing.assert_allclose(r.mae, whole.results[name].mae, rtol=1e-10)
+        np.testing.assert_allclose(r.oof, whole.results[name].oof, rtol=1e-10)
+
+
+def test_cv_figures_are_the_textbook_rmse_mae_and_band_accuracy():
+    # Reference: RMSE = sqrt(mean((y - yhat)^2)), MAE = mean(|y - yhat|) (scikit-learn's documented metric
+    # functions), band accuracy = share in the same half-open band; recomputed with numpy on the
+    # splits RepeatedKFold yields; the mean baseline predicts the training fold's mean.
     rng = np.random.default_rng(0)
     X = pd.DataFrame(
         {"a": rng.normal(size=60), "b": rng.normal(size=60), "region": rng.choice(["N", "S"], 60)}
     )
-    y = 30_000 + 8_000 * X["a"].to_numpy() + rng.normal(0, 3_000, 60)
-    s = _settings_for(["a", "b"], ("region",))
-    scores = {c.name: c for c in compare_candidates(X, y, s)}
+    y = 40_000 + 12_000 * X["a"].to_numpy() + rng.normal(0, 3_000, 60)
+    s = _settings_for(["a", "b"], ("region",), candidates=("linear_regression",))
+    result = compare(X, y, s)
     cv = RepeatedKFold(n_splits=4, n_repeats=2, random_state=s.train.random_state)
-    rmse, mae = [], []
+    edges = np.array(s.bands.edges)
+    rmse, mae, acc = [], [], []
     for train_idx, test_idx in cv.split(X):
         pred = np.full(len(test_idx), y[train_idx].mean())
         rmse.append(np.sqrt(np.mean((y[test_idx] - pred) ** 2)))
         mae.append(np.mean(np.abs(y[test_idx] - pred)))
-    np.testing.assert_allclose(scores["baseline_mean"].rmse_by_split, rmse, rtol=1e-12)
-    np.testing.assert_allclose(scores["baseline_mean"].mae_by_split, mae, rtol=1e-12)
-    assert scores["baseline_mean"].rmse_mean == pytest.approx(np.mean(rmse))
-    # The signal is linear, so the linear candidate must beat predicting the mean by far.
-    assert scores["linear_regression"].rmse_mean < 0.6 * scores["baseline_mean"].rmse_mean
+        acc.append(
+            np.mean(np.searchsorted(edges, y[test_idx], "right") == np.searchsorted(edges, pred, "right"))
+        )
+    base = result.results["baseline_mean"]
+    np.testing.assert_allclose(base.rmse, rmse, rtol=1e-12)
+    np.testing.assert_allclose(base.mae, mae, rtol=1e-12)
+    np.testing.assert_allclose(base.band_accuracy, acc, rtol=1e-12)
+    # The linear signal: the linear candidate is the champion and beats predicting the mean by far.
+    assert result.champion == "linear_regression"
+    assert result.results["linear_regression"].mean("rmse") < 0.6 * base.mean("rmse")
 
 
 def test_sklearn_documented_error_examples():
     # Source: scikit-learn API docs for mean_absolute_error and root_mean_squared_error, example
-    # y_true = [3, -0.5, 2, 7], y_pred = [2.5, 0.0, 2, 8] -> MAE 0.5, RMSE 0.612... (sqrt(0.375)).
-    # Our CV scoring uses these scorers by name; this pins the names to the documented definitions.
-    from sklearn.dummy import DummyRegressor
-    from sklearn.metrics import get_scorer
+    # y_true = [3, -0.5, 2, 7], y_pred = [2.5, 0.0, 2, 8] -> MAE 0.5, RMSE sqrt(0.375).
+    y_true, y_pred = [3, -0.5, 2, 7], [2.5, 0.0, 2, 8]
+    assert mean_absolute_error(y_true, y_pred) == pytest.approx(0.5)
+    assert root_mean_squared_error(y_true, y_pred) == pytest.approx(np.sqrt(0.375))
 
-    from ledgerband.tasks.train import SCORING
 
-    y_true = np.array([3, -0.5, 2, 7])
-    y_pred = np.array([2.5, 0.0, 2, 8])
+def test_corrected_resampled_t_bound():
+    # Source: Nadeau & Bengio (2003), Machine Learning 52:239-281: the corrected resampled t replaces the
+    # 1/J variance factor by 1/J + n_test/n_train. With n_test/n_train -> 0 it must equal the ordinary
+    # one-sided t bound, computed here by scipy's t interval (two-sided 90% = one-sided 95%).
+    from scipy import stats
 
-    class Fixed(DummyRegressor):
-        def predict(self, X):
-            return y_pred
-
-    model = Fixed().fit(np.zeros((4, 1)), y_true)
-    assert -get_scorer(SCORING["mae"])(model, np.zeros((4, 1)), y_true) == pytest.approx(0.5)
-    assert -get_scorer(SCORING["rmse"])(model, np.zeros((4, 1)), y_true) == pytest.approx(np.sqrt(0.375))
+    values = np.array([0.31, 0.28, 0.35, 0.30, 0.26, 0.33, 0.29, 0.32, 0.27, 0.34])
+    plain = stats.t.interval(0.90, df=9, loc=values.mean(), scale=stats.sem(values))[0]
+    assert lower_bound(values, 1e-12, 0.95).lower == pytest.approx(plain, rel=1e-9)
+    # Five folds: the variance grows by (1/10 + 1/4) / (1/10) = 3.5, the half-width by sqrt(3.5).
+    corrected = lower_bound(values, 0.2, 0.95)
+    assert values.mean() - corrected.lower == pytest.approx((values.mean() - plain) * np.sqrt(3.5), rel=1e-9)

@@ -41,9 +41,9 @@ def test_status_before_any_run_says_what_to_do():
 
 
 def test_misspelt_setting_is_a_configuration_error(monkeypatch):
-    monkeypatch.setenv("LEDGERBAND_ACURACY__MIN_BAND_ACCURACY", "0.5")
+    monkeypatch.setenv("LEDGERBAND_ACURACY__MIN_BAND_SKILL", "0.5")
     code, output = _run("status")
-    assert code == 2 and "configuration error" in output and "LEDGERBAND_ACURACY__MIN_BAND_ACCURACY" in output
+    assert code == 2 and "configuration error" in output and "LEDGERBAND_ACURACY__MIN_BAND_SKILL" in output
 
 
 def test_status_while_a_run_holds_the_warehouse_says_so(tmp_path):

@@ -48,12 +48,21 @@ def _train(**changes) -> TrainSummary:
         "candidates": [],
         "n_labelled": 1500,
         "champion": "linear_regression",
-        "baseline_rmse": 20_000.0,
-        "champion_rmse": 10_000.0,
         "champion_mae": 7_000.0,
-        "skill_over_baseline": 0.5,
-        "band_accuracy": 0.6,
-        "within_one_band": 0.95,
+        "mae_baseline": "baseline_median",
+        "baseline_mae": 15_000.0,
+        "mae_skill": 0.53,
+        "mae_skill_lower": 0.50,
+        "band_baseline": "baseline_median",
+        "baseline_band_accuracy": 0.40,
+        "band_accuracy": 0.68,
+        "band_skill": 0.47,
+        "band_skill_lower": 0.42,
+        "within_one_band": 0.99,
+        "interval_level": 0.80,
+        "coverage": 0.81,
+        "largest_group_gap": 0.12,
+        "largest_gap_attribute": "age_band",
         "note": None,
     }
     return TrainSummary(**{**base, **changes})
@@ -61,26 +70,52 @@ def _train(**changes) -> TrainSummary:
 
 def test_accuracy_gate_passes_a_good_champion():
     d = accuracy_gate(_train(), Settings())
-    assert d.passed and "skill 50.00%" in d.reason
+    assert d.passed and "linear_regression" in d.reason and "lower bound" in d.reason
 
 
-def test_accuracy_gate_reports_every_failing_condition():
+def test_accuracy_gate_judges_the_lower_bound_not_the_mean():
+    # A mean skill well above the threshold does not pass when its lower bound is below it.
+    d = accuracy_gate(_train(mae_skill=0.30, mae_skill_lower=0.15), Settings())
+    assert not d.passed
+    assert (
+        "MAE skill over baseline_median 30.00% (95% lower bound 15.00%) < accuracy.min_mae_skill 20.00%"
+        in (d.reason)
+    )
+
+
+def test_accuracy_gate_reports_every_failing_condition_and_what_would_help():
     d = accuracy_gate(
-        _train(n_labelled=50, skill_over_baseline=0.1, band_accuracy=0.3, within_one_band=0.8), Settings()
+        _train(
+            n_labelled=50,
+            band_skill=0.2,
+            band_skill_lower=0.1,
+            coverage=0.70,
+            curve_advice="about 1,200 labelled customers would reach the MAE-skill threshold",
+        ),
+        Settings(),
     )
     assert not d.passed
     for part in (
         "labelled customers 50 < accuracy.min_labelled_customers 200",
-        "RMSE skill over the predict-the-mean baseline 10.00% < accuracy.min_skill_over_baseline 20.00%",
-        "band accuracy 30.00% < accuracy.min_band_accuracy 45.00%",
-        "within-one-band rate 80.00% < accuracy.min_within_one_band 85.00%",
+        "(95% lower bound 10.00%",
+        "< accuracy.min_band_skill 20.00%",
+        "coverage 70.00% is more than accuracy.coverage_tolerance 5.00% from the nominal 80.00%",
+        "What would change the answer: about 1,200 labelled customers",
     ):
         assert part in d.reason
+    assert d.figures["band_skill_lower"] == 0.1 and d.thresholds["min_band_skill"] == 0.2
+
+
+def test_group_gap_is_reported_but_gated_only_when_configured():
+    wide = _train(largest_group_gap=0.30)
+    assert accuracy_gate(wide, Settings()).passed
+    d = accuracy_gate(wide, Settings(accuracy={"max_group_gap": 0.15}))
+    assert not d.passed and "between age_band groups > accuracy.max_group_gap 15.00%" in d.reason
 
 
 def test_accuracy_gate_treats_a_missing_figure_as_a_failure():
-    # NaN compares false with everything; a gate written as `figure < threshold` would let it through.
-    assert not accuracy_gate(_train(band_accuracy=math.nan), Settings()).passed
+    assert not accuracy_gate(_train(band_skill_lower=math.nan), Settings()).passed
+    assert not accuracy_gate(_train(coverage=None), Settings()).passed
 
 
 def test_accuracy_gate_stops_when_no_model_could_be_trained():

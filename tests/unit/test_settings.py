@@ -17,8 +17,8 @@ def test_misspelt_environment_variable_fails_loudly(monkeypatch):
 
 
 def test_environment_overrides_a_nested_threshold(monkeypatch):
-    monkeypatch.setenv("LEDGERBAND_ACCURACY__MIN_BAND_ACCURACY", "0.7")
-    assert Settings().accuracy.min_band_accuracy == 0.7
+    monkeypatch.setenv("LEDGERBAND_ACCURACY__MIN_BAND_SKILL", "0.7")
+    assert Settings().accuracy.min_band_skill == 0.7
 
 
 def test_misspelt_key_in_the_toml_file_fails(tmp_path, monkeypatch):

@@ -1,0 +1,306 @@
+"""Candidate models and their comparison on shared repeated cross-validation splits.
+
+Pure functions of a feature frame and the labels (no warehouse), so the comparison, the skill bounds
+and the decision they feed can be tested on data whose answer is known.
+
+Every candidate is a Pipeline behind the same preparation (one-hot categories, median-imputed numbers);
+a model that needs scaled inputs scales them itself, so the linear path sees the raw values and its
+coefficients are the textbook ones. All candidates are scored on one list of splits, made once, so the
+comparison is paired. Per split: RMSE, MAE, band accuracy and the within-one-band rate.
+
+Skill is judged on a lower confidence bound across the splits. Repeated k-fold splits share training
+rows, so their scores are correlated and the plain standard error is too small; the bound uses the
+corrected resampled t of Nadeau & Bengio (2003, Machine Learning 52:239-281): variance multiplied by
+(1/J + n_test/n_train) instead of 1/J, with J-1 degrees of freedom.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+from sklearn.base import BaseEstimator, RegressorMixin, clone
+from sklearn.compose import ColumnTransformer, TransformedTargetRegressor
+from sklearn.dummy import DummyRegressor
+from sklearn.ensemble import HistGradientBoostingRegressor, RandomForestRegressor
+from sklearn.impute import SimpleImputer
+from sklearn.linear_model import LinearRegression, RidgeCV
+from sklearn.metrics import mean_absolute_error, root_mean_squared_error
+from sklearn.model_selection import GridSearchCV, KFold, RepeatedKFold, train_test_split
+from sklearn.pipeline import Pipeline
+from sklearn.preprocessing import OneHotEncoder, StandardScaler
+from sklearn.tree import DecisionTreeRegressor
+
+from ledgerband.tasks.bands import assign_band_index
+from ledgerband.tasks.settings import Settings, TrainSettings
+
+BASELINES = ("baseline_mean", "baseline_median")
+
+
+def preparation(t: TrainSettings) -> ColumnTransformer:
+    """The preparation every candidate shares: one-hot categories, median-imputed numbers (unscaled)."""
+    return ColumnTransformer(
+        [
+            (
+                "categorical",
+                OneHotEncoder(handle_unknown="ignore", sparse_output=False),
+                list(t.categorical_features),
+            ),
+            ("numeric", SimpleImputer(strategy="median"), list(t.numeric_features)),
+        ]
+    )
+
+
+def _model(name: str, t: TrainSettings):
+    rs = t.random_state
+    if name == "linear_regression":
+        return LinearRegression()
+    if name == "ridge":
+        # Penalised: needs comparable scales. RidgeCV picks the penalty by efficient leave-one-out.
+        return Pipeline([("scale", StandardScaler()), ("ridge", RidgeCV(alphas=np.logspace(-3, 3, 13)))])
+    if name == "decision_tree":
+        # Depth chosen by inner 3-fold CV within each training fold (nested: no peeking at the test fold).
+        return GridSearchCV(
+            DecisionTreeRegressor(min_samples_leaf=t.tree_min_samples_leaf, random_state=rs),
+            {"max_depth": list(t.tree_depths)},
+            cv=KFold(3, shuffle=True, random_state=rs),
+            scoring="neg_mean_absolute_error",
+        )
+    if name == "random_forest":
+        return RandomForestRegressor(
+            n_estimators=t.forest_trees,
+            min_samples_leaf=5,
+            max_features=0.5,
+            max_samples=t.forest_max_samples,
+            n_jobs=t.n_jobs,
+            random_state=rs,
+        )
+    if name == "gradient_boosting":
+        return HistGradientBoostingRegressor(max_iter=t.boosting_max_iter, random_state=rs)
+    raise ValueError(f"unknown candidate {name!r}")
+
+
+def make_candidates(settings: Settings) -> dict[str, Pipeline]:
+    """The two baselines, then the configured candidates, each behind the shared preparation."""
+    t = settings.train
+    models: dict[str, object] = {
+        "baseline_mean": DummyRegressor(strategy="mean"),
+        "baseline_median": DummyRegressor(strategy="quantile", quantile=0.5),
+    }
+    for name in t.candidates:
+        model = _model(name, t)
+        if t.log_target:
+            model = TransformedTargetRegressor(regressor=model, func=np.log1p, inverse_func=np.expm1)
+        models[name] = model
+    return {name: Pipeline([("prepare", preparation(t)), ("model", m)]) for name, m in models.items()}
+
+
+class Floored(RegressorMixin, BaseEstimator):
+    """An estimator whose predictions never fall below `floor` (an income is never below zero).
+
+    Conformal scores proportional to the estimate (MAPIE's gamma score) need strictly positive estimates.
+    """
+
+    def __init__(self, estimator, floor: float = 1.0):
+        self.estimator = estimator
+        self.floor = floor
+
+    def fit(self, X, y, **fit_params):
+        self.estimator_ = clone(self.estimator).fit(X, y, **fit_params)
+        self.fitted_ = True  # the attribute MAPIE looks for to tell a fitted estimator
+        return self
+
+    def predict(self, X):
+        return np.maximum(self.estimator_.predict(X), self.floor)
+
+
+def cv_splits(n: int, t: TrainSettings) -> list[tuple[np.ndarray, np.ndarray]]:
+    """The one list of (train, test) index pairs every candidate is scored on: repeat-major order."""
+    cv = RepeatedKFold(n_splits=t.cv_folds, n_repeats=t.cv_repeats, random_state=t.random_state)
+    return list(cv.split(np.zeros((n, 1))))
+
+
+def comparison_sample(y: np.ndarray, edges, cap: int, seed: int) -> np.ndarray:
+    """Positions of the labelled customers the comparison runs on: all, or a band-stratified sample."""
+    n = len(y)
+    if n <= cap:
+        return np.arange(n)
+    bands = assign_band_index(y, edges)
+    counts = np.bincount(bands)
+    stratify = bands if counts[counts > 0].min() >= 2 else None
+    sample, _ = train_test_split(np.arange(n), train_size=cap, stratify=stratify, random_state=seed)
+    return np.sort(sample)
+
+
+@dataclass
+class CandidateResult:
+    """One candidate's scores on every split, and its out-of-fold estimates per repeat."""
+
+    name: str
+    rmse: np.ndarray
+    mae: np.ndarray
+    band_accuracy: np.ndarray
+    within_one_band: np.ndarray
+    oof: np.ndarray = field(repr=False)  # shape (repeats, n): every customer's estimate when held out
+
+    def mean(self, metric: str) -> float:
+        return float(np.mean(getattr(self, metric)))
+
+    def std(self, metric: str) -> float:
+        values = getattr(self, metric)
+        return float(np.std(values, ddof=1)) if len(values) > 1 else 0.0
+
+
+@dataclass
+class Comparison:
+    results: dict[str, CandidateResult]
+    splits: list[tuple[np.ndarray, np.ndarray]] = field(repr=False)
+    folds: int
+    repeats: int
+
+    @property
+    def champion(self) -> str:
+        """The candidate (not a baseline) with the lowest mean MAE; a baseline when there is none."""
+        models = [r for n, r in self.results.items() if n not in BASELINES] or list(self.results.values())
+        return min(models, key=lambda r: r.mean("mae")).name
+
+    def best_baseline(self, metric: str, higher_is_better: bool) -> str:
+        pick = max if higher_is_better else min
+        return pick(
+            (self.results[b] for b in BASELINES if b in self.results), key=lambda r: r.mean(metric)
+        ).name
+
+
+def _shared_preparation(candidates: dict) -> ColumnTransformer | None:
+    """The preparation step all candidates share, when they do (then it is fitted once per split)."""
+    pipes = list(candidates.values())
+    if not pipes or not all(
+        isinstance(p, Pipeline) and list(p.named_steps) == ["prepare", "model"] for p in pipes
+    ):
+        return None
+    first = pipes[0].named_steps["prepare"]
+    same = all(repr(p.named_steps["prepare"].get_params()) == repr(first.get_params()) for p in pipes)
+    return first if same else None
+
+
+def compare(
+    X: pd.DataFrame,
+    y: np.ndarray,
+    settings: Settings,
+    candidates: dict[str, BaseEstimator] | None = None,
+) -> Comparison:
+    """Fit and score every candidate on the same repeated k-fold splits.
+
+    When every candidate is a `prepare` + `model` Pipeline with the same preparation (as made by
+    `make_candidates`), the preparation is fitted once per split and each model on its output: the same
+    result as fitting each Pipeline, without repeating the one-hot encoding and imputation per model.
+    """
+    t, edges = settings.train, settings.bands.edges
+    y = np.asarray(y, dtype=float)
+    candidates = candidates if candidates is not None else make_candidates(settings)
+    splits = cv_splits(len(y), t)
+    true_band = assign_band_index(y, edges)
+    shared = _shared_preparation(candidates)
+    n_splits = len(splits)
+    scores = {name: np.empty((4, n_splits)) for name in candidates}  # rmse, mae, band acc, within one
+    oof = {name: np.full((t.cv_repeats, len(y)), np.nan) for name in candidates}
+    for i, (train, test) in enumerate(splits):
+        X_train, X_test = X.iloc[train], X.iloc[test]
+        if shared is not None:
+            prepare = clone(shared).fit(X_train)
+            X_train, X_test = prepare.transform(X_train), prepare.transform(X_test)
+        for name, pipe in candidates.items():
+            model = clone(pipe.named_steps["model"] if shared is not None else pipe)
+            pred = np.clip(
+                model.fit(X_train, y[train]).predict(X_test), 0, None
+            )  # incomes are never negative
+            oof[name][i // t.cv_folds, test] = pred
+            pred_band = assign_band_index(pred, edges)
+            scores[name][:, i] = (
+                root_mean_squared_error(y[test], pred),
+                mean_absolute_error(y[test], pred),
+                np.mean(pred_band == true_band[test]),
+                np.mean(np.abs(pred_band - true_band[test]) <= 1),
+            )
+    results = {name: CandidateResult(name, *scores[name], oof[name]) for name in candidates}
+    return Comparison(results, splits, t.cv_folds, t.cv_repeats)
+
+
+@dataclass(frozen=True)
+class Bound:
+    """A figure's mean across the splits and its one-sided lower confidence bound."""
+
+    mean: float
+    lower: float
+
+    def as_dict(self) -> dict[str, float]:
+        return {"mean": self.mean, "lower_bound": self.lower}
+
+
+def lower_bound(values: np.ndarray, test_share: float, confidence: float) -> Bound:
+    """Corrected resampled t lower bound (Nadeau & Bengio 2003) for a mean over correlated CV splits."""
+    values = np.asarray(values, dtype=float)
+    j = len(values)
+    mean = float(np.mean(values))
+    if j < 2 or not np.isfinite(values).all():
+        return Bound(mean, float("nan"))
+    corrected_var = np.var(values, ddof=1) * (1 / j + test_share / (1 - test_share))
+    t_crit = stats.t.ppf(confidence, df=j - 1)
+    return Bound(mean, float(mean - t_crit * np.sqrt(corrected_var)))
+
+
+@dataclass(frozen=True)
+class Skill:
+    """The champion's skill over the best baseline, per split and bounded."""
+
+    champion: str
+    mae_baseline: str
+    band_baseline: str
+    mae_skill: Bound
+    band_skill: Bound
+    band_accuracy: Bound
+    within_one_band: float
+    baseline_band_accuracy: float
+    per_split_mae_skill: list[float]
+    per_split_band_skill: list[float]
+
+
+def skill(comparison: Comparison, confidence: float) -> Skill:
+    """MAE skill and band-accuracy skill of the champion over the strongest baseline for each figure.
+
+    MAE skill = 1 - MAE / MAE(baseline); band skill = (accuracy - baseline's) / (1 - baseline's), the
+    share of the baseline's misplaced customers the model places right (a skill score in the forecast-
+    verification sense: 0 is no better than the reference, 1 is perfect).
+    """
+    r = comparison.results
+    champ = r[comparison.champion]
+    mae_base = r[comparison.best_baseline("mae", higher_is_better=False)]
+    band_base = r[comparison.best_baseline("band_accuracy", higher_is_better=True)]
+    test_share = 1 / comparison.folds
+    mae_skill = 1 - champ.mae / mae_base.mae
+    with np.errstate(divide="ignore", invalid="ignore"):
+        band_skill = (champ.band_accuracy - band_base.band_accuracy) / (1 - band_base.band_accuracy)
+    return Skill(
+        champion=champ.name,
+        mae_baseline=mae_base.name,
+        band_baseline=band_base.name,
+        mae_skill=lower_bound(mae_skill, test_share, confidence),
+        band_skill=lower_bound(band_skill, test_share, confidence),
+        band_accuracy=lower_bound(champ.band_accuracy, test_share, confidence),
+        within_one_band=champ.mean("within_one_band"),
+        baseline_band_accuracy=band_base.mean("band_accuracy"),
+        per_split_mae_skill=mae_skill.tolist(),
+        per_split_band_skill=band_skill.tolist(),
+    )
+
+
+def final_model(pipe: Pipeline) -> Pipeline:
+    """The refitted champion as it is saved: a tuned tree is replaced by the tree it chose."""
+    model = pipe.named_steps["model"]
+    if isinstance(model, GridSearchCV):
+        return Pipeline([("prepare", pipe.named_steps["prepare"]), ("model", model.best_estimator_)])
+    if isinstance(model, TransformedTargetRegressor) and isinstance(model.regressor_, GridSearchCV):
+        model.regressor = model.regressor_ = model.regressor_.best_estimator_
+    return pipe
