@@ -185,7 +185,9 @@ def demo(
         f"Demo truth check (only a synthetic bank can do this): for the {t['customers_estimated']} customers "
         f"the model estimated, RMSE {t['rmse']:,.0f}, MAE {t['mae']:,.0f}, mean error {t['mean_error']:+,.0f}, "
         f"band accuracy {t['band_accuracy']:.1%}, within one band {t['within_one_band']:.1%}; their "
-        f"intervals hold the true income for {t['interval_coverage']:.1%}.",
+        f"intervals hold the true income for {t['interval_coverage']:.1%}. Error floor (RMSE of the part of income "
+        f"no behaviour shows): {t['error_floor_rmse']:,.0f} for them, {t['labelled_error_floor_rmse']:,.0f} for "
+        "the labelled customers.",
         soft_wrap=True,
     )
     _print_label_agreement(t["labels"])

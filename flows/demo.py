@@ -2,12 +2,16 @@
 
 from __future__ import annotations
 
+import json
+
 from prefect import flow, task
 from prefect.cache_policies import NO_CACHE
 
 from ledgerband.flows.monthly import RunResult, monthly_run
+from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.demo.generator import DemoFiles, generate
 from ledgerband.tasks.demo.truth import label_agreement, truth_check
+from ledgerband.tasks.report import report_task
 from ledgerband.tasks.settings import get_settings
 from ledgerband.tasks.warehouse import open_warehouse
 
@@ -30,12 +34,17 @@ def generate_task(customers: int, months: int, end_period: str, seed: int, file_
 
 @task(name="demo-truth-check", cache_policy=NO_CACHE)
 def truth_check_task(run_id: str) -> dict:
+    """Compare the run with the demo's answers; the figures are kept for the run report (demo only)."""
     s = get_settings()
     with open_warehouse(s.warehouse_path) as con:
-        return {
+        figures = {
             **truth_check(con, s.demo_answers_path, run_id, s.bands.edges),
             "labels": label_agreement(con, s.demo_answers_path),
         }
+    path = s.demo_truth_path(run_id)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(json.dumps(figures, indent=2, default=float) + "\n")
+    return figures
 
 
 @flow(name="ledgerband-demo")
@@ -56,4 +65,7 @@ def demo_run(
         file_format or d.file_format,
     )
     result = monthly_run(files.periods[-1], files.landing_dir)
-    return files, result, truth_check_task(result.run_id)
+    truth = truth_check_task(result.run_id)
+    # The report again, now with the truth check beside the cross-validated figures.
+    report_task(RunContext.create(result.period, files.landing_dir, run_id=result.run_id))
+    return files, result, truth

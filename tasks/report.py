@@ -109,8 +109,11 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
             "sum(bonus_amount)::double as bonus_amount from features.customer_label group by all order by all",
             [],
         )
+    truth_file = settings.demo_truth_path(run_id)
+    truth = json.loads(truth_file.read_text()) if truth_file.is_file() else None
     return {
         "run_id": run_id,
+        "truth": truth,
         "labels": labels,
         "period": period,
         "generated_at": datetime.now().isoformat(timespec="seconds"),

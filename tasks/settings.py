@@ -307,6 +307,10 @@ class Settings(BaseSettings):
         """The demo's true incomes: beside, never inside, the landing folder the pipeline reads."""
         return self.home / "demo" / "answers" / "true_income.csv"
 
+    def demo_truth_path(self, run_id: str) -> Path:
+        """The demo's truth check of one run (read by that run's report; demo only)."""
+        return self.home / "demo" / "truth" / f"{run_id}.json"
+
     @property
     def alerts_log(self) -> Path:
         return self.home / "alerts" / "alerts.jsonl"

@@ -79,6 +79,11 @@ def _previous_business_day(d: date) -> date:
     return d
 
 
+INCOME_NOISE_SD = 0.15  # log-scale sd of the part of income behaviour never shows
+# Customers paid elsewhere often use this bank as a secondary account: the share of their spending here.
+SECONDARY_SPENDING_SHARE = (0.25, 0.9)
+
+
 def _customers(rng: np.random.Generator, n: int, end: date) -> pd.DataFrame:
     age = np.clip(rng.normal(44, 14, n), 19, 84).round().astype(int)
     region_idx = rng.choice(len(REGIONS), n, p=[0.26, 0.18, 0.16, 0.14, 0.12, 0.14])
@@ -86,8 +91,12 @@ def _customers(rng: np.random.Generator, n: int, end: date) -> pd.DataFrame:
     # Older customers a little more often in senior roles; the very young rarely.
     occ_idx = np.where((age < 25) & (occ_idx == 4), 2, occ_idx)
     age_factor = np.exp(-(((age - 50) / 22.0) ** 2) * 0.45) * 0.45 + 0.62
-    income = OCC_MEDIAN[occ_idx] * REGION_PAY_FACTOR[region_idx] * age_factor * rng.lognormal(0, 0.22, n)
-    income = np.round(income, -1)
+    # Behaviour is driven by a customer's spending capacity; income is capacity times a factor no behaviour
+    # shows (mean 1). No model of behaviour can beat knowing the capacity, so the error of predicting
+    # income by capacity is the demo's error floor; the answer file keeps both.
+    capacity = OCC_MEDIAN[occ_idx] * REGION_PAY_FACTOR[region_idx] * age_factor * rng.lognormal(0, 0.22, n)
+    hidden = rng.normal(-(INCOME_NOISE_SD**2) / 2, INCOME_NOISE_SD, n)
+    income = np.round(capacity * np.exp(hidden), -1)
     birth = [end - timedelta(days=int(a * 365.25 + rng.integers(0, 365))) for a in age]
     opened = [end - timedelta(days=int(rng.integers(200, 365 * 15))) for _ in range(n)]
     return pd.DataFrame(
@@ -102,6 +111,7 @@ def _customers(rng: np.random.Generator, n: int, end: date) -> pd.DataFrame:
             "age": age,
             "occupation": np.array(OCCUPATIONS)[occ_idx],
             "income": income,
+            "capacity": capacity,
         }
     )
 
@@ -410,9 +420,10 @@ def _spending(rng: np.random.Generator, cust: pd.DataFrame, start: date, end: da
     months = days / 30.4375
     region_names = np.array(REGIONS)
     for c in cust.itertuples(index=False):
-        rel = c.income / 45_000
+        rel = c.capacity / 45_000
+        # Diminishing returns: the share of capacity spent falls as capacity rises.
         spend_ratio = float(np.clip(rng.normal(0.78 - 0.12 * np.log(rel), 0.20), 0.30, 1.30))
-        monthly_spend = c.income / 12 * spend_ratio
+        monthly_spend = c.capacity / 12 * spend_ratio * c.share_here
         housing = monthly_spend * float(rng.uniform(0.20, 0.50))
         utilities = monthly_spend * float(rng.uniform(0.05, 0.09))
         card_budget = monthly_spend - housing - utilities
@@ -453,7 +464,7 @@ def _spending(rng: np.random.Generator, cust: pd.DataFrame, start: date, end: da
                 )
             p = p.shift(1)
         # Card payments: count and discretionary mix rise with income.
-        n_card = int(rng.poisson((14 + 12 * np.sqrt(rel)) * months))
+        n_card = int(rng.poisson((14 + 12 * np.sqrt(rel)) * months * c.share_here))
         if n_card:
             w = np.clip(0.25 + 0.25 * np.log(rel), 0.05, 0.85)
             mix = (1 - w) * MCC_BASIC + w * MCC_DISCRETIONARY
@@ -552,6 +563,14 @@ def generate(
     start, end = periods[0].start, periods[-1].end
     cust = _customers(rng, customers, end)
     income_rows, answers = _income_credits(rng, cust, start, end, holiday_array(holidays, start, end))
+    kind = cust["customer_id"].map(answers.set_index("customer_id")["income_kind"])
+    cust["share_here"] = np.where(
+        kind == "paid_elsewhere", rng.uniform(*SECONDARY_SPENDING_SHARE, len(cust)), 1.0
+    )
+    truth = cust.set_index("customer_id")
+    answers["behaviour_signal"] = answers["customer_id"].map(truth["capacity"]).round(2)
+    answers["irreducible_noise"] = (answers["true_annual_income"] - answers["behaviour_signal"]).round(2)
+    answers["spending_share_here"] = answers["customer_id"].map(truth["share_here"]).round(3)
     rows = income_rows + _spending(rng, cust, start, end)
     cols = [
         "customer_id",
@@ -575,11 +594,9 @@ def generate(
         drop=True
     )
     signed = np.where(tx["direction"] == "CRDT", tx["cents"], -tx["cents"])
-    opening = (
-        (cust.set_index("account_id")["income"] * rng.uniform(0.01, 0.25, len(cust)) * 100)
-        .round()
-        .astype("int64")
-    )
+    # Savings grow with capacity less than in proportion, and vary a lot between people.
+    opening_eur = 2_000 * (cust["capacity"] / 45_000) ** 0.6 * rng.lognormal(0, 0.9, len(cust))
+    opening = (pd.Series(opening_eur.to_numpy(), index=cust["account_id"]) * 100).round().astype("int64")
     tx["balance_cents"] = (
         opening.reindex(tx["account_id"]).to_numpy()
         + pd.Series(signed).groupby(tx["account_id"]).cumsum().to_numpy()

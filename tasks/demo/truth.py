@@ -24,6 +24,12 @@ def truth_check(con, answers_path: Path, run_id: str, edges: tuple[float, ...]) 
     ).df()
     m = pred.merge(answers, on="customer_id")
     estimated = m[m["annual_salary"].isna() & m["observed_pension"].isna()]
+    labelled = m[m["annual_salary"].notna()]
+
+    def floor(frame: pd.DataFrame) -> float:
+        # No model of behaviour beats knowing the behaviour signal; what is left is the floor.
+        return float(np.sqrt(np.mean(frame["irreducible_noise"] ** 2))) if len(frame) else float("nan")
+
     err = estimated["estimate"] - estimated["true_annual_income"]
     t = assign_band_index(estimated["true_annual_income"], edges)
     p = assign_band_index(estimated["estimate"], edges)
@@ -33,6 +39,8 @@ def truth_check(con, answers_path: Path, run_id: str, edges: tuple[float, ...]) 
         "mae": float(np.mean(np.abs(err))) if len(err) else float("nan"),
         "mean_error": float(err.mean()) if len(err) else float("nan"),
         "mean_true_income": float(estimated["true_annual_income"].mean()) if len(err) else float("nan"),
+        "error_floor_rmse": floor(estimated),
+        "labelled_error_floor_rmse": floor(labelled),
         "band_accuracy": float(np.mean(t == p)) if len(err) else float("nan"),
         "within_one_band": float(np.mean(np.abs(t - p) <= 1)) if len(err) else float("nan"),
         # The intervals on the customers they are for (cross-validation can only check the labelled).
