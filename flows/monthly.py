@@ -1,5 +1,5 @@
 """The monthly run: ingest → validate (quality gate) → features → label gate → train → accuracy gate →
-publish → report."""
+drift gate → publish → report."""
 
 from __future__ import annotations
 
@@ -16,6 +16,7 @@ from ledgerband.tasks.errors import GateStopped
 from ledgerband.tasks.features import FeatureBuild, build_features_task
 from ledgerband.tasks.gates import Decision
 from ledgerband.tasks.gates.accuracy import accuracy_gate_task
+from ledgerband.tasks.gates.drift import drift_gate_task
 from ledgerband.tasks.gates.labels import label_gate_task
 from ledgerband.tasks.gates.quality import quality_gate_task
 from ledgerband.tasks.ingest import find_extracts_task, ingest_customers_task, ingest_extract_task
@@ -82,6 +83,7 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> RunResult:
             "train", train_task, ctx, detail=lambda t: {"champion": t.champion, "n_labelled": t.n_labelled}
         )
         accuracy = log.run("accuracy_gate", accuracy_gate_task, ctx, train, detail=lambda d: d.reason)
+        log.run("drift_gate", drift_gate_task, ctx, detail=lambda d: d.reason)
         published = log.run("publish", publish_task, ctx, train, detail=lambda p: p.__dict__)
     except GateStopped as stop:
         # Every stop leaves its evidence: the report and the readers' copy show the decision.

@@ -33,8 +33,9 @@ class GateStopped(LedgerbandError):
 
     @property
     def run_status(self) -> str:
-        """How ops.runs names the run's end: an accuracy stop withholds a sound month; others stop it."""
-        return "withheld" if self.gate == "accuracy" else "stopped"
+        """How ops.runs names the run's end: an accuracy or drift stop withholds a sound month (the data
+        passed its checks, the estimates did not); others stop it."""
+        return "withheld" if self.gate in ("accuracy", "drift") else "stopped"
 
     def with_report(self, report: str | None) -> GateStopped:
         """The same stop, its message pointing at the run report (when one was written)."""

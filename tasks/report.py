@@ -61,6 +61,8 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
     )
     shift = _rows(con, "select * from ml.population_shift where run_id = ? order by feature", [run_id])
     curve = _rows(con, "select * from ml.learning_curve where run_id = ? order by n_train", [run_id])
+    drift = _rows(con, "select * from ml.drift where run_id = ? order by psi desc", [run_id])
+    drift_decision = next((d for d in decisions if d["gate"] == "drift"), None)
     accuracy = next((d for d in decisions if d["gate"] == "accuracy"), None)
     bands = _rows(
         con,
@@ -84,8 +86,10 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
     regions: dict[str, dict[str, int]] = {}
     for r in by_region:
         regions.setdefault(r["home_region"], {})[r["income_band"]] = r["customers"]
-    published = any(d["gate"] == "accuracy" and d["decision"] == "pass" for d in decisions)
     stopped_at = next((d["gate"] for d in decisions if d["decision"] == "stop"), None)
+    published = stopped_at is None and any(
+        d["gate"] == "accuracy" and d["decision"] == "pass" for d in decisions
+    )
     quarantine = _rows(
         con,
         """
@@ -129,6 +133,8 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
         "shift": shift,
         "shift_auc": accuracy["figures"].get("shift_auc") if accuracy else None,
         "curve": curve,
+        "drift": drift,
+        "drift_decision": drift_decision,
         "bands": bands,
         "max_band_count": max([b["customers"] for b in bands] or [1]) or 1,
         "regions": regions,
@@ -144,6 +150,8 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
             "round_to": settings.intervals.round_to,
             "min_group_customers": settings.accuracy.min_group_customers,
             "max_shift_auc": settings.accuracy.max_shift_auc,
+            "psi_warn": settings.drift.psi_warn,
+            "psi_stop": settings.drift.psi_stop,
             "currency": settings.bands.currency,
             "features": list(settings.train.numeric_features) + list(settings.train.categorical_features),
         },

@@ -24,6 +24,7 @@ from sklearn.pipeline import Pipeline
 from ledgerband.tasks.assess import LearningCurve, group_errors, learning_curve_of, population_shift
 from ledgerband.tasks.bands import assign_band_index, income_to_publish
 from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.gates.drift import profile
 from ledgerband.tasks.intervals import (
     Intervals,
     band_confidence,
@@ -219,7 +220,7 @@ def code_version() -> dict[str, str]:
 def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainSummary:
     """Evaluate, refit the champion with its conformal intervals, store every figure in ml.*."""
     settings, run_id, period = ctx.settings, ctx.run_id, str(ctx.period)
-    t, iv = settings.train, settings.intervals
+    t, iv, edges = settings.train, settings.intervals, settings.bands.edges
     frame = model_frame(con)
     features = list(t.numeric_features) + list(t.categorical_features)
     is_labelled = frame["annual_salary"].notna().to_numpy()
@@ -264,6 +265,16 @@ def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainS
     con.register("prediction_rows", predictions)
     con.execute("insert into ml.predictions by name select * from prediction_rows")
     con.unregister("prediction_rows")
+    drift_profile = profile(
+        frame,
+        list(t.numeric_features),
+        predictions["band_index"].to_numpy(),
+        len(edges) + 1,
+        settings.drift.bins,
+    )
+    con.register("profile_rows", drift_profile.assign(run_id=run_id))
+    con.execute("insert into ml.drift_profiles by name select * from profile_rows")
+    con.unregister("profile_rows")
 
     model_path = _save_model(
         pipe,
@@ -312,6 +323,7 @@ ML_TABLES = (
     "ml.group_errors",
     "ml.learning_curve",
     "ml.population_shift",
+    "ml.drift_profiles",
 )
 
 

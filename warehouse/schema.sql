@@ -192,12 +192,34 @@ create table if not exists ml.population_shift (
     standardised_difference double
 );
 
+-- Grain: one row per (run_id, subject, bin_index): this run's bins and shares of each feature, the label
+-- and the band shares; the next month's drift gate compares with them (ledgerband.tasks.gates.drift).
+create table if not exists ml.drift_profiles (
+    run_id varchar not null,
+    subject varchar not null,
+    bin_index integer not null,
+    lower_edge double not null,            -- -inf for the first bin
+    upper_edge double not null,            -- +inf for the last bin
+    share double not null,
+    customers bigint not null
+);
+
+-- Grain: one row per (run_id, subject): population stability index against an earlier published run.
+create table if not exists ml.drift (
+    run_id varchar not null,
+    compared_with_run varchar not null,
+    subject varchar not null,
+    psi double not null,
+    customers_then bigint not null,
+    customers_now bigint not null
+);
+
 -- One row per run, gate, check and subject: the decision and every figure behind it (JSON).
 create table if not exists published.decisions (
     run_id varchar not null,
     period varchar not null,
     gate varchar not null,                 -- 'quality' | 'accuracy'
-    decision varchar not null,             -- 'pass' | 'stop'
+    decision varchar not null,             -- 'pass' | 'warn' | 'stop'
     reason varchar not null,
     figures json not null,
     thresholds json not null,

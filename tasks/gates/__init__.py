@@ -36,6 +36,11 @@ class Decision:
     figures: dict = field(default_factory=dict)
     thresholds: dict = field(default_factory=dict)
     subject: str = RUN
+    warning: bool = False  # passed, with something the owners should look at ('warn' in the record)
+
+    @property
+    def outcome(self) -> str:
+        return "stop" if not self.passed else "warn" if self.warning else "pass"
 
 
 def pct(x: float | None) -> str:
@@ -60,7 +65,7 @@ def record(con: duckdb.DuckDBPyConnection, ctx: RunContext, decision: Decision) 
             decision.gate,
             decision.check,
             decision.subject,
-            "pass" if decision.passed else "stop",
+            decision.outcome,
             decision.reason,
             json.dumps(decision.figures, default=str),
             json.dumps(decision.thresholds, default=str),

@@ -76,7 +76,7 @@ def label_stats(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> LabelStats:
     this_month = int(by_month.get(ctx.period.start, 0))
     earlier = [int(by_month.get(p.start, 0)) for p in ctx.salary_window if p != ctx.period]
     previous = con.execute(
-        "select figures from published.decisions where gate = ? and decision = 'pass' and period < ? "
+        "select figures from published.decisions where gate = ? and decision in ('pass', 'warn') and period < ? "
         "order by period desc, decided_at desc limit 1",
         [LABELS, str(ctx.period)],
     ).fetchall()

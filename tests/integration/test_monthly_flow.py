@@ -138,6 +138,7 @@ def test_every_stage_is_recorded_in_ops_runs(home, first_run):
         "label_gate",
         "train",
         "accuracy_gate",
+        "drift_gate",
         "publish",
         "report",
         "reader_copy",
