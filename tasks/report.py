@@ -63,7 +63,7 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
     curve = _rows(con, "select * from ml.learning_curve where run_id = ? order by n_train", [run_id])
     drift = _rows(con, "select * from ml.drift where run_id = ? order by psi desc", [run_id])
     drift_decision = next((d for d in decisions if d["gate"] == "drift"), None)
-    accuracy = next((d for d in decisions if d["gate"] == "accuracy"), None)
+    accuracy = next((d for d in decisions if d["gate"] == "accuracy" and d["check_name"] == "accuracy"), None)
     bands = _rows(
         con,
         """
@@ -87,9 +87,7 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
     for r in by_region:
         regions.setdefault(r["home_region"], {})[r["income_band"]] = r["customers"]
     stopped_at = next((d["gate"] for d in decisions if d["decision"] == "stop"), None)
-    published = stopped_at is None and any(
-        d["gate"] == "accuracy" and d["decision"] == "pass" for d in decisions
-    )
+    published = stopped_at is None and accuracy is not None and accuracy["decision"] == "pass"
     quarantine = _rows(
         con,
         """

@@ -86,8 +86,40 @@ def _what_would_help(train: TrainSummary) -> str:
     return ""
 
 
+def shift_decision(train: TrainSummary, settings: Settings) -> Decision:
+    """Population shift is reported, never a stop: a warning when the estimated customers are easy to
+    tell from the labelled ones (the accuracy measured on the labelled then says less about them)."""
+    limit = settings.accuracy.max_shift_auc
+    figures = {"shift_auc": train.shift_auc}
+    if train.shift_auc is None:
+        return Decision(
+            ACCURACY, "population_shift", True, "not measured (too few customers in a group)", figures
+        )
+    if train.shift_auc > limit:
+        return Decision(
+            ACCURACY,
+            "population_shift",
+            True,
+            f"warning: a classifier tells estimated from labelled customers apart with AUC {train.shift_auc:.2f} "
+            f"> accuracy.max_shift_auc {limit:.2f}; their real error can differ from the measured one",
+            figures,
+            {"max_shift_auc": limit},
+            warning=True,
+        )
+    return Decision(
+        ACCURACY,
+        "population_shift",
+        True,
+        f"estimated and labelled customers are alike enough: AUC {train.shift_auc:.2f} <= {limit:.2f}",
+        figures,
+        {"max_shift_auc": limit},
+    )
+
+
 @task(name="accuracy-gate", cache_policy=NO_CACHE)
 def accuracy_gate_task(ctx: RunContext, train: TrainSummary) -> Decision:
     """Decide whether the champion's estimates may be published (never retried)."""
     with open_warehouse(ctx.warehouse) as con:
+        if train.champion is not None:
+            enforce(con, ctx, shift_decision(train, ctx.settings))
         return enforce(con, ctx, accuracy_gate(train, ctx.settings))
