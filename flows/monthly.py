@@ -23,6 +23,7 @@ from ledgerband.tasks.ingest import find_extracts_task, ingest_customers_task, i
 from ledgerband.tasks.loads import LoadResult
 from ledgerband.tasks.publish import publish_task, refresh_reader_copy_task
 from ledgerband.tasks.report import report_task
+from ledgerband.tasks.runlock import run_lock
 from ledgerband.tasks.runlog import FAILED, PUBLISHED, RunLog
 from ledgerband.tasks.train import TrainSummary, train_task
 from ledgerband.tasks.validate import validate_features_task, validate_load_task
@@ -73,6 +74,12 @@ def monthly_run(period: str, landing_dir: Path | None = None) -> RunResult:
     caught up; files already accepted are skipped by checksum.
     """
     ctx = RunContext.create(period, landing_dir, run_id=str(flow_run.id or uuid.uuid4()))
+    # One run at a time per state folder: a second one is refused before it touches anything.
+    with run_lock(ctx.settings.home, str(ctx.period)):
+        return _run(ctx)
+
+
+def _run(ctx: RunContext) -> RunResult:
     log = RunLog(ctx)
     try:
         loaded = log.run("ingest", ingest, ctx, detail=lambda r: {x.source_file: x.status for x in r})

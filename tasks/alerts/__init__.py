@@ -28,8 +28,11 @@ def write_alert(log_path: Path, *, flow_run: str, state: str, message: str, owne
 
 def alert_owners_hook(flow, flow_run, state) -> None:
     """Prefect on_failure hook: tell the owners which run failed and why."""
+    from ledgerband.tasks.runlock import RunLocked
     from ledgerband.tasks.settings import get_settings
 
+    if RunLocked.MARK in (state.message or ""):
+        return  # a start refused because another run is going: nothing failed, nobody to wake
     settings = get_settings()
     write_alert(
         settings.alerts_log,

@@ -1,0 +1,71 @@
+"""One run at a time: two real processes, one holding the state folder, one refused (exit 4)."""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+pytestmark = pytest.mark.integration
+
+HOLD = """
+import sys, time
+from pathlib import Path
+from ledgerband.tasks.runlock import run_lock
+with run_lock(Path(sys.argv[1]), "2026-10"):
+    print("held", flush=True)
+    time.sleep(120)
+"""
+
+
+def test_a_second_run_is_refused_while_the_first_holds_the_folder(tmp_path, prefect_api):
+    home, landing = tmp_path / "home", tmp_path / "landing"
+    landing.mkdir()
+    env = {**os.environ, "LEDGERBAND_HOME": str(home)}
+    holder = subprocess.Popen(
+        [sys.executable, "-c", HOLD, str(home)], stdout=subprocess.PIPE, text=True, env=env
+    )
+    try:
+        assert holder.stdout.readline().strip() == "held"
+        second = subprocess.run(
+            [
+                str(Path(sys.executable).parent / "ledgerband"),
+                "run",
+                "--period",
+                "2026-10",
+                "--landing",
+                str(landing),
+            ],
+            capture_output=True,
+            text=True,
+            env=env,
+            timeout=120,
+        )
+        said = " ".join((second.stdout + second.stderr).split())
+        assert second.returncode == 4, said
+        assert "another run holds" in said and f"process {holder.pid}" in said and "period 2026-10" in said
+        assert not (home / "alerts" / "alerts.jsonl").exists()  # a refused start is not a failure
+    finally:
+        holder.send_signal(signal.SIGKILL)  # as a crash would end it
+        holder.wait(timeout=30)
+    # The operating system released the dead run's lock: the next run takes it with nothing to clear.
+    from ledgerband.tasks.runlock import run_lock
+
+    with run_lock(home, "2026-10") as me:
+        assert me["pid"] == os.getpid()
+
+
+def test_the_lock_is_exclusive_within_one_machine(tmp_path):
+    from ledgerband.tasks.runlock import RunLocked, run_lock
+
+    with run_lock(tmp_path, "2026-09"):
+        with pytest.raises(RunLocked, match="period 2026-09") as refused:
+            with run_lock(tmp_path, "2026-10"):
+                pass
+    assert refused.value.exit_code == 4
+    with run_lock(tmp_path, "2026-10"):  # free again once the block ends
+        pass
