@@ -263,7 +263,28 @@ def status(limit: Annotated[int, typer.Option(help="How many recent runs to show
         "order by started_at desc limit ?",
         [limit],
     ).fetchall()
+    has_alerts = con.execute(
+        "select count(*) from information_schema.tables where table_schema = 'ops' and table_name = 'alerts'"
+    ).fetchall()[0][0]
+    undelivered = (
+        con.execute(
+            "select sent_at, period, audience, channel, attempts, error, run_id from ops.alerts "
+            "where status = 'undelivered' order by sent_at desc limit ?",
+            [limit],
+        ).fetchall()
+        if has_alerts
+        else []
+    )
     con.close()
+    if undelivered:
+        out.print(f"[red]Alerts that did not reach their owners[/] (the local log has them: {s.alerts_log}):")
+        for sent, period, audience, channel, attempts, error, run_id in undelivered:
+            out.print(
+                f"  {str(sent)[:19]} UTC  {period}  to {audience} by {channel}, {attempts} attempt(s): {error}  "
+                f"(run {run_id})",
+                soft_wrap=True,
+                highlight=False,
+            )
     out.print(f"Recent runs in {s.warehouse_path}:")
     colour = {"published": "green", "withheld": "yellow", "stopped": "red", "failed": "red"}
     for run_id, period, started, st, error, stages, gates in rows:

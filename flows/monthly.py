@@ -65,6 +65,7 @@ def features(ctx: RunContext) -> FeatureBuild:
     name="ledgerband-monthly-run",
     flow_run_name="monthly-{period}",
     on_failure=[alert_owners_hook],
+    on_crashed=[alert_owners_hook],
     log_prints=True,
 )
 def monthly_run(period: str, landing_dir: Path | None = None) -> RunResult:

@@ -41,6 +41,9 @@ def default_home() -> Path:
     return Path(os.environ.get("LEDGERBAND_HOME", ".ledgerband")).absolute()
 
 
+# Environment variables with this prefix hold alert URLs (secrets), not settings.
+SECRET_ENV_PREFIX = "LEDGERBAND_ALERT_URLS"
+
 # Models train.candidates may name (ledgerband.tasks.models builds each one).
 MODEL_NAMES = ("linear_regression", "ridge", "decision_tree", "random_forest", "gradient_boosting")
 
@@ -227,6 +230,20 @@ class FeatureSettings(_Section):
     large_debit_threshold: float = Field(100.0, gt=0)
 
 
+class AlertSettings(_Section):
+    """Who hears of a failed, stopped or withheld run. Each field names an environment variable holding
+    apprise URLs (space or comma separated): URLs carry credentials, so they never sit in the TOML."""
+
+    data_urls_env: str = "LEDGERBAND_ALERT_URLS_DATA"
+    """Owners of ingest, validation and features (the quality gate)."""
+    model_urls_env: str = "LEDGERBAND_ALERT_URLS_MODEL"
+    """Owners of the labels, the models and the accuracy and drift gates."""
+    publish_urls_env: str = "LEDGERBAND_ALERT_URLS_PUBLISH"
+    """Owners of publishing, the report and the readers' copy."""
+    attempts: int = Field(3, ge=1, le=10)
+    retry_seconds: float = Field(2.0, ge=0)
+
+
 class DemoSettings(_Section):
     institution: str = "Corrandale Mutual Savings"
     customers: int = Field(2_000, ge=50)
@@ -259,6 +276,7 @@ class Settings(BaseSettings):
     features: FeatureSettings = FeatureSettings()
     payroll: PayrollSettings = PayrollSettings()
     labels: LabelSettings = LabelSettings()
+    alerts: AlertSettings = AlertSettings()
     demo: DemoSettings = DemoSettings()
 
     @classmethod
@@ -333,6 +351,8 @@ class _FilteredEnv(PydanticBaseSettingsSource):
     def __call__(self) -> dict:
         known = set(self.settings_cls.model_fields) | self._locators
         for name in os.environ:
+            if name.upper().startswith(SECRET_ENV_PREFIX):
+                continue  # alert URLs: read where they are used, never a settings key
             if name.upper().startswith("LEDGERBAND_"):
                 top = name[len("LEDGERBAND_") :].split("__", 1)[0].lower()
                 if top not in known:

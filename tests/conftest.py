@@ -58,3 +58,59 @@ def prefect_api():
 
     with prefect_test_harness(server_startup_timeout=120):
         yield
+
+
+@pytest.fixture
+def http_sink():
+    """A real HTTP server on 127.0.0.1 that keeps every JSON body POSTed to it (a webhook receiver)."""
+    import json as _json
+    import threading
+    from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
+
+    received: list[dict] = []
+
+    class Handler(BaseHTTPRequestHandler):
+        def do_POST(self):  # noqa: N802 - the http.server API
+            body = self.rfile.read(int(self.headers.get("Content-Length", 0)))
+            received.append({"path": self.path, "body": _json.loads(body or b"{}")})
+            self.send_response(200)
+            self.end_headers()
+
+        def log_message(self, *args):  # keep the test output clean
+            pass
+
+    server = ThreadingHTTPServer(("127.0.0.1", 0), Handler)
+    thread = threading.Thread(target=server.serve_forever, daemon=True)
+    thread.start()
+    try:
+        yield f"127.0.0.1:{server.server_address[1]}", received
+    finally:
+        server.shutdown()
+        server.server_close()
+
+
+@pytest.fixture
+def smtp_sink():
+    """A real SMTP server (aiosmtpd) on 127.0.0.1 that keeps every message it is handed."""
+    import socket
+
+    from aiosmtpd.controller import Controller
+
+    received: list[dict] = []
+
+    class Handler:
+        async def handle_DATA(self, server, session, envelope):  # noqa: N802 - the aiosmtpd API
+            received.append(
+                {"from": envelope.mail_from, "to": envelope.rcpt_tos, "content": envelope.content.decode()}
+            )
+            return "250 OK"
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    controller = Controller(Handler(), hostname="127.0.0.1", port=port)
+    controller.start()
+    try:
+        yield f"127.0.0.1:{port}", received
+    finally:
+        controller.stop()

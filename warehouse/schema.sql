@@ -289,3 +289,17 @@ create table if not exists ops.runs (
     stages json,                           -- [{stage, status, seconds, detail}]
     gate_figures json
 );
+
+-- One row per alert delivery attempt group (ledgerband.tasks.alerts): every alert is also in the local log.
+create table if not exists ops.alerts (
+    alert_id varchar primary key,
+    run_id varchar,
+    period varchar,
+    audience varchar not null,
+    channel varchar not null,      -- the URL's scheme (mailto, json, ...) or local_log; never the URL
+    status varchar not null,       -- delivered | undelivered | logged (no URL configured)
+    attempts integer not null,
+    error varchar,
+    title varchar not null,
+    sent_at timestamp not null     -- UTC
+);

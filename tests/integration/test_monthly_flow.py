@@ -207,12 +207,16 @@ def test_rerun_loads_nothing_twice_and_publishes_a_new_snapshot(home, first_run,
     assert _q(home, "select count(*) from published.income_bands")[0][0] == CUSTOMERS
 
 
-def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(home, first_run, demo, monkeypatch):
+def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(
+    home, first_run, demo, monkeypatch, http_sink
+):
     from ledgerband.flows.monthly import monthly_run
     from ledgerband.tasks.settings import get_settings
 
     current = _q(home, "select run_id from published.snapshots where is_current")
     monkeypatch.setenv("LEDGERBAND_ACCURACY__MIN_BAND_SKILL", "0.99")
+    address, received = http_sink
+    monkeypatch.setenv("LEDGERBAND_ALERT_URLS_MODEL", f"json://{address}/model-owners")
     get_settings.cache_clear()
     with pytest.raises(
         GateStopped,
@@ -223,7 +227,13 @@ def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(home, first_
     [(status, error)] = _q(home, "select status, error from ops.runs order by started_at desc limit 1")
     assert status == "withheld" and "min_band_skill" in error
     alerts = [json.loads(line) for line in (home / "alerts" / "alerts.jsonl").read_text().splitlines()]
-    assert alerts[-1]["state"] == "Failed" and "min_band_skill" in alerts[-1]["message"]
+    assert alerts[-1]["state"] == "Failed" and "min_band_skill" in alerts[-1]["reason"]
+    assert alerts[-1]["status"] == "withheld" and alerts[-1]["exit_code"] == 3
+    # The model owners' webhook heard of it, with the period, gate, exit code and report.
+    [hit] = received
+    assert hit["path"] == "/model-owners"
+    assert hit["body"]["title"] == "ledgerband 2026-10: run withheld by the accuracy gate"
+    assert "exit code 3" in hit["body"]["message"] and "reports/2026-10/index.html" in hit["body"]["message"]
     assert "Withheld by the accuracy gate" in (home / "reports" / "2026-10" / "index.html").read_text()
     # Readers see the withheld decision next to the unchanged current snapshot.
     reader = duckdb.connect(str(home / "published" / "ledgerband_published.duckdb"), read_only=True)
