@@ -11,6 +11,7 @@ from prefect import flow, get_run_logger
 from prefect.runtime import flow_run
 
 from ledgerband.tasks.alerts import alert_owners_hook
+from ledgerband.tasks.artifacts import run_artifacts
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import GateStopped
 from ledgerband.tasks.features import FeatureBuild, build_features_task
@@ -23,8 +24,11 @@ from ledgerband.tasks.ingest import find_extracts_task, ingest_customers_task, i
 from ledgerband.tasks.loads import LoadResult
 from ledgerband.tasks.publish import publish_task, refresh_reader_copy_task
 from ledgerband.tasks.report import report_task
+from ledgerband.tasks.retry import minutes_setting
 from ledgerband.tasks.runlock import run_lock
 from ledgerband.tasks.runlog import FAILED, PUBLISHED, RunLog
+from ledgerband.tasks.schedule import period_for_scheduled
+from ledgerband.tasks.settings import get_settings
 from ledgerband.tasks.train import TrainSummary, train_task
 from ledgerband.tasks.validate import validate_features_task, validate_load_task
 
@@ -61,19 +65,31 @@ def features(ctx: RunContext) -> FeatureBuild:
     return build
 
 
+def _run_name() -> str:
+    """Prefect's name for a run: its month (a scheduled run's month comes from its scheduled time)."""
+    period = flow_run.parameters.get("period") or period_for_scheduled(
+        flow_run.scheduled_start_time, get_settings().schedule.timezone
+    )
+    return f"monthly-{period}"
+
+
 @flow(
     name="ledgerband-monthly-run",
-    flow_run_name="monthly-{period}",
+    flow_run_name=_run_name,
     on_failure=[alert_owners_hook],
     on_crashed=[alert_owners_hook],
+    timeout_seconds=minutes_setting("flow_timeout_minutes", 240),
     log_prints=True,
 )
-def monthly_run(period: str, landing_dir: Path | None = None) -> RunResult:
+def monthly_run(period: str | None = None, landing_dir: Path | None = None) -> RunResult:
     """Run one month end to end; raises GateStopped (flow FAILED, owners alerted) when a gate stops it.
 
-    Every month of the feature window is ingested if it has not been already, so a missed month is
-    caught up; files already accepted are skipped by checksum.
+    Without `period` (a scheduled run), the month is the last complete one before the run's scheduled
+    time in `schedule.timezone`. Every month of the window is ingested if it has not been already, so a
+    missed month is caught up; files already accepted are skipped by checksum.
     """
+    if period is None:
+        period = str(period_for_scheduled(flow_run.scheduled_start_time, get_settings().schedule.timezone))
     ctx = RunContext.create(period, landing_dir, run_id=str(flow_run.id or uuid.uuid4()))
     # One run at a time per state folder: a second one is refused before it touches anything.
     with run_lock(ctx.settings.home, str(ctx.period)):
@@ -95,8 +111,10 @@ def _run(ctx: RunContext) -> RunResult:
         published = log.run("publish", publish_task, ctx, train, detail=lambda p: p.__dict__)
     except GateStopped as stop:
         # Every stop leaves its evidence: the report and the readers' copy show the decision.
-        stop_with_report = stop.with_report(_best_effort(log, "report", report_task, ctx))
+        report = _best_effort(log, "report", report_task, ctx)
+        stop_with_report = stop.with_report(report)
         _best_effort(log, "reader_copy", refresh_reader_copy_task, ctx)
+        _artifacts(ctx, stop.run_status, report)
         log.finish(stop.run_status, str(stop_with_report))
         if stop_with_report is stop:
             raise
@@ -113,6 +131,7 @@ def _run(ctx: RunContext) -> RunResult:
         log.finish(PUBLISHED, f"published, but {log.stages[-1]['stage']} failed: {type(exc).__name__}: {exc}")
         raise
     log.finish(PUBLISHED)
+    _artifacts(ctx, PUBLISHED, report)
     return RunResult(
         ctx.run_id,
         str(ctx.period),
@@ -124,6 +143,13 @@ def _run(ctx: RunContext) -> RunResult:
         published_path,
         published.is_current,
     )
+
+
+def _artifacts(ctx: RunContext, status: str, report) -> None:
+    try:
+        run_artifacts(ctx, status, report)
+    except Exception as exc:  # noqa: BLE001 - the run's page decoration never fails a run
+        get_run_logger().warning("could not create the run's Prefect artifacts: %s", exc)
 
 
 def _best_effort(log: RunLog, stage: str, task_fn, *args):

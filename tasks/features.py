@@ -44,7 +44,7 @@ def build_features(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> FeatureBu
     return FeatureBuild(build_layers(con, ctx.layer_params()))
 
 
-@task(name="build-features", cache_policy=NO_CACHE)
+@task(name="build-features", task_run_name="build-features-{ctx.period}", cache_policy=NO_CACHE)
 def build_features_task(ctx: RunContext) -> FeatureBuild:
     with open_warehouse(ctx.warehouse) as con:
         return build_features(con, ctx)

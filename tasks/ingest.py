@@ -190,7 +190,7 @@ def load_customers(con: duckdb.DuckDBPyConnection, ctx: RunContext, path: Path) 
     return loads.LoadResult(load_id, str(path), None, loads.LOADED, rows, rows)
 
 
-@task(name="find-extracts", cache_policy=NO_CACHE, **IO_RETRIES)
+@task(name="find-extracts", task_run_name="find-extracts-{ctx.period}", cache_policy=NO_CACHE, **IO_RETRIES)
 def find_extracts_task(ctx: RunContext) -> list[Path]:
     """Manifests of every month the run needs that is not yet accepted (a landing folder may be cleaned
     once its month is accepted)."""
@@ -207,7 +207,12 @@ def ingest_extract_task(ctx: RunContext, manifest_path: Path) -> loads.LoadResul
         return load_extract(con, ctx, manifest)
 
 
-@task(name="ingest-customers", cache_policy=NO_CACHE, **IO_RETRIES)
+@task(
+    name="ingest-customers",
+    task_run_name="ingest-customers-{ctx.period}",
+    cache_policy=NO_CACHE,
+    **IO_RETRIES,
+)
 def ingest_customers_task(ctx: RunContext) -> loads.LoadResult:
     with open_warehouse(ctx.warehouse) as con:
         return load_customers(con, ctx, ctx.customers_file)

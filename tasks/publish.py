@@ -119,13 +119,23 @@ def _sql_path(path: Path) -> str:
     return str(path).replace("'", "''")
 
 
-@task(name="publish-snapshot", cache_policy=NO_CACHE, **IO_RETRIES)
+@task(
+    name="publish-snapshot",
+    task_run_name="publish-snapshot-{ctx.period}",
+    cache_policy=NO_CACHE,
+    **IO_RETRIES,
+)
 def publish_task(ctx: RunContext, train: TrainSummary) -> PublishResult:
     with open_warehouse(ctx.warehouse) as con:
         return publish_snapshot(con, ctx, train.model_version)
 
 
-@task(name="refresh-reader-copy", cache_policy=NO_CACHE, **IO_RETRIES)
+@task(
+    name="refresh-reader-copy",
+    task_run_name="refresh-reader-copy-{ctx.period}",
+    cache_policy=NO_CACHE,
+    **IO_RETRIES,
+)
 def refresh_reader_copy_task(ctx: RunContext) -> Path:
     """After every run that reached a decision: readers see the current snapshot and every decision,
     including a month that was withheld or stopped."""

@@ -175,7 +175,7 @@ def write_report(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> Path:
     return out
 
 
-@task(name="write-report", cache_policy=NO_CACHE, **IO_RETRIES)
+@task(name="write-report", task_run_name="write-report-{ctx.period}", cache_policy=NO_CACHE, **IO_RETRIES)
 def report_task(ctx: RunContext) -> Path:
     with open_warehouse(ctx.warehouse) as con:
         return write_report(con, ctx)

@@ -14,5 +14,21 @@ def retry_on_io(task: Any, task_run: Any, state: Any) -> bool:
     return isinstance(exc, OSError) and not isinstance(exc, _PERMANENT)
 
 
+def minutes_setting(name: str, default: float) -> float:
+    """A timeout from settings.schedule, in seconds, read when the tasks are defined (import time);
+    the default when the settings cannot be read yet (the CLI reports a broken configuration itself)."""
+    try:
+        from ledgerband.tasks.settings import get_settings
+
+        return float(getattr(get_settings().schedule, name)) * 60
+    except Exception:  # noqa: BLE001
+        return default * 60
+
+
 # Keyword arguments for @task on stages that read landing files or write the published copy/report.
-IO_RETRIES: dict[str, Any] = {"retries": 2, "retry_delay_seconds": [5, 30], "retry_condition_fn": retry_on_io}
+IO_RETRIES: dict[str, Any] = {
+    "retries": 2,
+    "retry_delay_seconds": [5, 30],
+    "retry_condition_fn": retry_on_io,
+    "timeout_seconds": minutes_setting("io_timeout_minutes", 60),
+}

@@ -8,6 +8,7 @@ dies half-way still shows how far it got. The gate figures are read back from pu
 from __future__ import annotations
 
 import json
+import logging
 import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
@@ -26,6 +27,28 @@ RUNNING = "running"
 PUBLISHED = "published"
 FAILED = "failed"
 # and GateStopped.run_status: 'withheld' (accuracy) or 'stopped' (quality)
+
+
+def _log_stage(ctx: RunContext, record: dict) -> None:
+    """One INFO line per stage in the Prefect run log (what the UI shows), a WARNING when it did not end ok."""
+    try:
+        from prefect import get_run_logger
+
+        logger = get_run_logger()
+    except Exception:  # noqa: BLE001 - outside a flow run there is no run log
+        return
+    level = logging.INFO if record["status"] == "ok" else logging.WARNING
+    detail = json.dumps(record["detail"], default=str) if record["detail"] is not None else ""
+    logger.log(
+        level,
+        "%s %s: %s %s in %.1f s %s",
+        ctx.period,
+        ctx.run_id[:8],
+        record["stage"],
+        record["status"],
+        record["seconds"],
+        detail[:2000],
+    )
 
 
 @dataclass
@@ -59,6 +82,7 @@ class RunLog:
         finally:
             record["seconds"] = round(time.perf_counter() - t0, 3)
             self._write()
+            _log_stage(self.ctx, record)
 
     def run(self, name: str, fn: Callable[..., T], *args: Any, detail: Callable[[T], Any] | None = None) -> T:
         """One stage as one line: call `fn(*args)` inside `stage(name)`; `detail` summarises its result."""

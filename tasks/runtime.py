@@ -16,7 +16,9 @@ QUIET_OFFLINE = {
     "PREFECT_SERVER_ANALYTICS_ENABLED": "false",
     # The temporary local API needs more than the default 20 s on a 2-core machine (STACK.md).
     "PREFECT_SERVER_EPHEMERAL_STARTUP_TIMEOUT_SECONDS": "90",
-    "PREFECT_LOGGING_LEVEL": "WARNING",
+    # INFO reaches the Prefect API (the UI's run page shows every stage); the console shows warnings only.
+    "PREFECT_LOGGING_LEVEL": "INFO",
+    "PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL": "WARNING",
     "GX_ANALYTICS_ENABLED": "false",
     "TQDM_DISABLE": "1",
 }

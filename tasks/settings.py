@@ -230,6 +230,33 @@ class FeatureSettings(_Section):
     large_debit_threshold: float = Field(100.0, gt=0)
 
 
+class ScheduleSettings(_Section):
+    """The monthly deployment: when it runs, where, and how long a run may take."""
+
+    cron: str = "0 6 3 * *"
+    """06:00 on the 3rd: the core-banking month-end extract and its manifest land by the 2nd."""
+    timezone: str = "Europe/Dublin"
+    """IANA zone the cron is read in. A zone with daylight saving, so the run stays at 06:00 local
+    through the change (a bare cron is UTC); set the institution's own zone."""
+    deployment_name: str = "monthly"
+    work_pool: str = "ledgerband-process"
+    flow_timeout_minutes: float = Field(240, gt=0)
+    """A run still going after this is failed (and the owners alerted) instead of hanging."""
+    io_timeout_minutes: float = Field(60, gt=0)
+    """Timeout of each task that reads or writes files (ingest, report, readers' copy)."""
+
+    @field_validator("timezone")
+    @classmethod
+    def _known_zone(cls, v: str) -> str:
+        from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+        try:
+            ZoneInfo(v)
+        except (ZoneInfoNotFoundError, ValueError) as exc:
+            raise ValueError(f"schedule.timezone {v!r} is not an IANA time zone") from exc
+        return v
+
+
 class AlertSettings(_Section):
     """Who hears of a failed, stopped or withheld run. Each field names an environment variable holding
     apprise URLs (space or comma separated): URLs carry credentials, so they never sit in the TOML."""
@@ -276,6 +303,7 @@ class Settings(BaseSettings):
     features: FeatureSettings = FeatureSettings()
     payroll: PayrollSettings = PayrollSettings()
     labels: LabelSettings = LabelSettings()
+    schedule: ScheduleSettings = ScheduleSettings()
     alerts: AlertSettings = AlertSettings()
     demo: DemoSettings = DemoSettings()
 

@@ -474,7 +474,7 @@ def _save_model(pipe: Pipeline, folder: Path, card: dict) -> Path:
     return path
 
 
-@task(name="train-candidates", cache_policy=NO_CACHE)
+@task(name="train-candidates", task_run_name="train-candidates-{ctx.period}", cache_policy=NO_CACHE)
 def train_task(ctx: RunContext) -> TrainSummary:
     """Fit and compare the candidates (never retried: training is deterministic)."""
     with open_warehouse(ctx.warehouse) as con:

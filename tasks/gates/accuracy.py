@@ -116,7 +116,7 @@ def shift_decision(train: TrainSummary, settings: Settings) -> Decision:
     )
 
 
-@task(name="accuracy-gate", cache_policy=NO_CACHE)
+@task(name="accuracy-gate", task_run_name="accuracy-gate-{ctx.period}", cache_policy=NO_CACHE)
 def accuracy_gate_task(ctx: RunContext, train: TrainSummary) -> Decision:
     """Decide whether the champion's estimates may be published (never retried)."""
     with open_warehouse(ctx.warehouse) as con:

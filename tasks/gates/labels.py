@@ -149,7 +149,7 @@ def label_gate(stats: LabelStats, limits: LabelSettings) -> Decision:
     )
 
 
-@task(name="label-gate", cache_policy=NO_CACHE)
+@task(name="label-gate", task_run_name="label-gate-{ctx.period}", cache_policy=NO_CACHE)
 def label_gate_task(ctx: RunContext) -> Decision:
     """Judge the run's labels (never retried)."""
     with open_warehouse(ctx.warehouse) as con:

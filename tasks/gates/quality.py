@@ -46,7 +46,7 @@ def quality_gate(validations: Sequence[ValidationSummary], settings: Settings) -
     return Decision(QUALITY, "quarantine_share", True, reason, figures, thresholds)
 
 
-@task(name="quality-gate", cache_policy=NO_CACHE)
+@task(name="quality-gate", task_run_name="quality-gate-{ctx.period}", cache_policy=NO_CACHE)
 def quality_gate_task(ctx: RunContext, validations: list[ValidationSummary]) -> Decision:
     """Decide on the run's new extracts; accept or reject them in the same transaction as the decision."""
     decision = quality_gate(validations, ctx.settings)
