@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 import logging
+import os
 from enum import StrEnum
 from pathlib import Path
 from typing import Annotated
@@ -240,6 +241,47 @@ def run(
     from ledgerband.flows.monthly import monthly_run
 
     _print_result(_run_guarded(monthly_run, period, landing))
+
+
+@app.command()
+def deploy(
+    work_pool: Annotated[
+        str | None, typer.Option(help="Process work pool (default: schedule.work_pool).")
+    ] = None,
+) -> None:
+    """Register the monthly schedule on the Prefect server in PREFECT_API_URL (a process worker runs it)."""
+    s = _settings()
+    if not os.environ.get("PREFECT_API_URL"):
+        _fail(
+            LedgerbandError(
+                "PREFECT_API_URL is not set: deploy registers the schedule on a running Prefect server "
+                "(see README, Operating it), or use `ledgerband serve`"
+            )
+        )
+    from ledgerband.flows.deploy import deploy as register
+
+    deployment_id = _run_guarded(register, s, work_pool)
+    pool = work_pool or s.schedule.work_pool
+    out.print(
+        f"Deployment [bold]ledgerband-monthly-run/{s.schedule.deployment_name}[/] ({deployment_id}) on work pool "
+        f"[bold]{pool}[/]: cron '{s.schedule.cron}' in {s.schedule.timezone}, one run at a time; each run reads "
+        f"the month before its scheduled time. Start a worker: prefect worker start --pool {pool}",
+        soft_wrap=True,
+    )
+
+
+@app.command()
+def serve() -> None:
+    """Run the monthly schedule from this process (no work pool); keep it running as a service."""
+    s = _settings()
+    from ledgerband.flows.deploy import serve as serve_schedule
+
+    out.print(
+        f"Serving the monthly schedule: cron '{s.schedule.cron}' in {s.schedule.timezone}; stop with Ctrl-C "
+        "(Prefect pauses the schedule when the process stops).",
+        soft_wrap=True,
+    )
+    serve_schedule(s)
 
 
 @app.command()
