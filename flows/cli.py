@@ -135,6 +135,12 @@ def _print_result(result) -> None:
     out.print(f"Run report: [bold]{result.report}[/]")
 
 
+def _quiet(fn, *args, **kwargs):
+    """Call a flow with expected failures kept off the console (the caller reports them)."""
+    _quiet_expected_failures()
+    return fn(*args, **kwargs)
+
+
 def _run_guarded(fn, *args, **kwargs):
     _quiet_expected_failures()
     try:
@@ -241,6 +247,99 @@ def run(
     from ledgerband.flows.monthly import monthly_run
 
     _print_result(_run_guarded(monthly_run, period, landing))
+
+
+@app.command()
+def backfill(
+    from_: Annotated[str, typer.Option("--from", help="First month, YYYY-MM.")],
+    to: Annotated[str, typer.Option("--to", help="Last month, YYYY-MM (inclusive).")],
+    force: Annotated[bool, typer.Option(help="Run months that are already published again.")] = False,
+    landing: Annotated[Path | None, typer.Option(help="Landing folder (default: settings).")] = None,
+) -> None:
+    """Run months in order; skip published ones unless --force; stop at the first that fails.
+
+    A month older than the current snapshot is published as a historical snapshot: readers' current
+    tables never move back in time.
+    """
+    s = _settings()
+    from ledgerband.tasks.period import Period
+
+    try:
+        first, last = Period.parse(from_), Period.parse(to)
+    except LedgerbandError as exc:
+        _fail(exc)
+    if last < first:
+        _fail(LedgerbandError(f"--from {first} is after --to {last}"))
+    landing = landing or s.landing
+    if not landing.is_dir():
+        _fail(LedgerbandError(f"landing folder {landing} does not exist"))
+    published = _published_periods(s)
+    from ledgerband.flows.monthly import monthly_run
+
+    period = first
+    while period <= last:
+        if str(period) in published and not force:
+            out.print(f"{period}: already published, skipped (--force runs it again)")
+        else:
+            try:
+                result = _quiet(monthly_run, str(period), landing)
+            except LedgerbandError as exc:
+                out.print(f"[red]Backfill stopped at {period}[/]; later months were not run.")
+                _fail(exc)
+            note = "" if result.is_current else " (historical snapshot; the current one stays)"
+            out.print(f"{period}: {result.status}{note} — run {result.run_id}", highlight=False)
+        period = period.shift(1)
+
+
+@app.command()
+def restate(
+    period: Annotated[str, typer.Option(help="The accepted month to restate, YYYY-MM.")],
+    reason: Annotated[str, typer.Option(help="Why (kept in ops.restatements and ops.loads).")],
+    landing: Annotated[Path | None, typer.Option(help="Landing folder with the corrected file.")] = None,
+) -> None:
+    """Replace an accepted month's extract by a corrected one in the landing folder, and run the month."""
+    s = _settings()
+    from ledgerband.tasks import restate as restatement
+    from ledgerband.tasks.period import Period
+    from ledgerband.tasks.warehouse import open_warehouse
+
+    try:
+        p = Period.parse(period)
+    except LedgerbandError as exc:
+        _fail(exc)
+    landing = landing or s.landing
+    with open_warehouse(s.warehouse_path) as con:
+        request = _run_guarded(restatement.begin, con, p, landing, reason)
+    from ledgerband.flows.monthly import monthly_run
+
+    try:
+        result = _quiet(monthly_run, str(p), landing)
+    except BaseException as exc:
+        with open_warehouse(s.warehouse_path) as con:
+            restatement.finish(con, request, p, None, f"{type(exc).__name__}: {exc}")
+        out.print(f"[red]Restatement of {p} failed[/]: the previously accepted extract stays in force.")
+        if isinstance(exc, LedgerbandError):
+            _fail(exc)
+        raise
+    with open_warehouse(s.warehouse_path) as con:
+        restatement.finish(con, request, p, result.run_id, None)
+    out.print(
+        f"{p} restated from the corrected extract: {result.status} — run {result.run_id}", highlight=False
+    )
+
+
+def _published_periods(s) -> set[str]:
+    from ledgerband.tasks.warehouse import connect
+
+    if not s.warehouse_path.exists():
+        return set()
+    con = connect(s.warehouse_path, read_only=True)
+    try:
+        return {p for (p,) in con.execute("select distinct period from published.snapshots").fetchall()}
+    except Exception:  # noqa: BLE001 - no snapshot table yet: nothing published
+        return set()
+    finally:
+        con.close()
 
 
 @app.command()

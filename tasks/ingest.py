@@ -98,7 +98,8 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
     if clash:
         raise ExtractError(
             f"{path}: period {manifest.period} already has an accepted {path.name} (load {clash}) with other "
-            "content; replacing an accepted extract is not supported — ask the sender for a new file name"
+            f"content; an accepted extract is replaced only on purpose: `ledgerband restate --period "
+            f"{manifest.period} --reason ...` (or ask the sender for a new file name)"
         )
     records = read_records(path)
     enforce(con, ctx, extract_contract_decision(records.header, source=path))

@@ -19,6 +19,7 @@ from ledgerband.tasks.warehouse import scalar
 LOADED = "loaded"  # in raw.*, not yet through the quality gate
 ACCEPTED = "accepted"  # passed the quality gate: staging reads it
 REJECTED = "rejected"  # stopped by a check; kept for the record, never staged
+RESTATED = "restated"  # replaced by a corrected file through `ledgerband restate`; kept, never staged
 SKIPPED = "skipped"  # (load result only) the same bytes were accepted before
 LEDGER = "ledger"
 CUSTOMERS = "customers"

@@ -26,7 +26,7 @@ create table if not exists ops.loads (
     rows_quarantined bigint,               -- malformed records + records breaking a row-level rule
     credit_total decimal(18, 2),
     debit_total decimal(18, 2),
-    status varchar not null,               -- 'loaded' -> 'accepted' | 'rejected'
+    status varchar not null,               -- 'loaded' -> 'accepted' | 'rejected'; 'accepted' -> 'restated'
     reason varchar,
     run_id varchar,
     loaded_at timestamp not null,
@@ -302,4 +302,18 @@ create table if not exists ops.alerts (
     error varchar,
     title varchar not null,
     sent_at timestamp not null     -- UTC
+);
+
+-- One row per accepted load a restatement replaced (ledgerband.tasks.restate).
+create table if not exists ops.restatements (
+    restatement_id varchar not null,
+    period varchar not null,
+    old_load_id varchar not null,
+    old_source_file varchar not null,
+    old_sha256 varchar not null,
+    reason varchar not null,
+    requested_at timestamp not null,
+    status varchar not null,               -- pending | done | failed (the old load was put back)
+    run_id varchar,
+    error varchar
 );
