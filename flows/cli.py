@@ -126,6 +126,8 @@ def _print_result(result) -> None:
     out.print(table)
     out.print(f"[green]Accuracy gate passed:[/] {result.accuracy.reason}")
     out.print(f"Published tables (readers open this file): [bold]{result.published_path}[/]")
+    if s.readers.parquet:
+        out.print(f"Parquet by period (for BI tools): [bold]{s.parquet_dir}[/]")
     if not result.is_current:
         out.print(
             f"[yellow]{result.period} was published as a historical snapshot:[/] a later month's snapshot stays "
@@ -338,6 +340,49 @@ def _published_periods(s) -> set[str]:
         return {p for (p,) in con.execute("select distinct period from published.snapshots").fetchall()}
     except Exception:  # noqa: BLE001 - no snapshot table yet: nothing published
         return set()
+    finally:
+        con.close()
+
+
+class ExportFormat(StrEnum):
+    parquet = "parquet"
+    csv = "csv"
+
+
+@app.command()
+def export(
+    period: Annotated[str, typer.Option(help="Published month, YYYY-MM.")],
+    to: Annotated[Path, typer.Option(help="Folder to write the files into.")],
+    format: Annotated[ExportFormat, typer.Option(help="parquet or csv.")] = ExportFormat.parquet,  # noqa: A002
+) -> None:
+    """Write one published month's tables (income bands, band summary, band movers) to a folder."""
+    s = _settings()
+    from ledgerband.tasks.export import export_period
+    from ledgerband.tasks.period import Period
+
+    try:
+        Period.parse(period)
+    except LedgerbandError as exc:
+        _fail(exc)
+    files = _run_guarded(export_period, s.published_path, period, format.value, to)
+    for name, path in files.items():
+        out.print(f"{name}: {path}", highlight=False)
+
+
+@app.command()
+def contract() -> None:
+    """Print the readers' contract (published tables and columns) as the README shows it."""
+    s = _settings()
+    import duckdb
+
+    from ledgerband.tasks.contract import markdown
+
+    if not s.published_path.exists():
+        _fail(LedgerbandError(f"no published tables yet at {s.published_path}; run `ledgerband demo` first"))
+    con = duckdb.connect(str(s.published_path), read_only=True)
+    try:
+        catalog = con.execute("select current_database()").fetchall()[0][0]
+        print(markdown(con, catalog))
     finally:
         con.close()
 

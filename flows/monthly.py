@@ -22,7 +22,7 @@ from ledgerband.tasks.gates.labels import label_gate_task
 from ledgerband.tasks.gates.quality import quality_gate_task
 from ledgerband.tasks.ingest import find_extracts_task, ingest_customers_task, ingest_extract_task
 from ledgerband.tasks.loads import LoadResult
-from ledgerband.tasks.publish import publish_task, refresh_reader_copy_task
+from ledgerband.tasks.publish import parquet_task, publish_task, refresh_reader_copy_task
 from ledgerband.tasks.report import report_task
 from ledgerband.tasks.retry import minutes_setting
 from ledgerband.tasks.runlock import run_lock
@@ -127,6 +127,7 @@ def _run(ctx: RunContext) -> RunResult:
     try:
         report = log.run("report", report_task, ctx, detail=str)
         published_path = log.run("reader_copy", refresh_reader_copy_task, ctx, detail=str)
+        log.run("parquet", parquet_task, ctx, detail=lambda rows: rows)
     except Exception as exc:
         log.finish(PUBLISHED, f"published, but {log.stages[-1]['stage']} failed: {type(exc).__name__}: {exc}")
         raise

@@ -21,17 +21,31 @@ from prefect.cache_policies import NO_CACHE
 
 from ledgerband.tasks.bands import write_band_table
 from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.contract import apply_comments
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.retry import IO_RETRIES
 from ledgerband.tasks.train import TrainSummary
 from ledgerband.tasks.warehouse import open_warehouse, scalar, sql_model, transaction
 
+# Readers never see a suppressed cell's count.
+_SUPPRESS = "h.* replace (case when h.suppressed then null else h.customer_count end as customer_count)"
+_PUBLISHED = "inner join published.snapshots as s using (run_id)"
 READER_TABLES = {
     "income_bands": "select * from published.income_bands",
-    "band_summary": "select * from published.band_summary",
+    "band_summary": f"select {_SUPPRESS} from published.band_summary as h",
+    "band_movers": f"select {_SUPPRESS} from published.band_movers as h",
     "income_band_scheme": "select * from ref.income_bands",
     "snapshots": "select * from published.snapshots",
     "decisions": "select * from published.decisions",
+    "income_bands_history": f"select h.* from published.income_bands_history as h {_PUBLISHED}",
+    "band_summary_history": f"select {_SUPPRESS} from published.band_summary_history as h {_PUBLISHED}",
+    "band_movers_history": f"select {_SUPPRESS} from published.band_movers_history as h {_PUBLISHED}",
+}
+# Tables delivered as Parquet by period (what a BI tool reads), from the same reader queries.
+PARQUET_TABLES = {
+    "income_bands": "income_bands_history",
+    "band_summary": "band_summary_history",
+    "band_movers": "band_movers_history",
 }
 
 
@@ -59,13 +73,16 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, ctx: RunContext, model_vers
         "period": period,
         "model_version": model_version,
         "published_at": published_at,
+        "currency": settings.bands.currency,
+        "min_cell_customers": settings.readers.min_cell_customers,
     }
     with transaction(con):
         write_band_table(con, settings.bands.edges, settings.bands.currency)
-        for table in ("income_bands_history", "band_summary_history", "snapshots"):
+        for table in ("income_bands_history", "band_summary_history", "band_movers_history", "snapshots"):
             con.execute(f"delete from published.{table} where run_id = ?", [run_id])
         insert_from_file(con, "published.income_bands_history", "income_bands", params)
         insert_from_file(con, "published.band_summary_history", "band_summary", params)
+        insert_from_file(con, "published.band_movers_history", "band_movers", params)
         band_rows, distinct_customers = con.execute(
             "select count(*)::bigint, count(distinct customer_id)::bigint "
             "from published.income_bands_history where run_id = ?",
@@ -109,10 +126,62 @@ def export_reader_copy(con: duckdb.DuckDBPyConnection, target: Path) -> Path:
     try:
         for name, query in READER_TABLES.items():
             con.execute(f"create table reader_copy.{name} as {query}")
+        apply_comments(con, "reader_copy")
     finally:
         con.execute("detach reader_copy")
     os.replace(tmp, target)
     return target
+
+
+def write_parquet(con: duckdb.DuckDBPyConnection, root: Path, period: str) -> dict[str, int]:
+    """Write the period's published snapshot of each reader table as Parquet, hive-partitioned by period.
+
+    Each table's partition is written to a temporary folder, read back and checked against the warehouse
+    (rows and the sum of its amount or count), then renamed into place; a reader never sees half a
+    partition. Returns rows per table.
+    """
+    import shutil
+    import uuid
+
+    [(run_id,)] = con.execute(
+        "select run_id from published.snapshots where period = ? order by published_at desc limit 1", [period]
+    ).fetchall()
+    rows = {}
+    for name, history in PARQUET_TABLES.items():
+        query = f"select * from ({READER_TABLES[history]}) where run_id = '{run_id.replace(chr(39), '')}'"
+        measure = "annual_income_estimate" if name == "income_bands" else "customer_count"
+        expected = con.execute(f"select count(*), sum({measure}) from ({query})").fetchall()[0]
+        staging = root / f".incoming-{uuid.uuid4().hex[:8]}"
+        staging.mkdir(parents=True)
+        try:
+            con.execute(
+                f"copy ({query}) to '{_sql_path(staging / name)}' (format parquet, partition_by (period))"
+            )
+            part = staging / name / f"period={period}"
+            got = (
+                con.execute(
+                    f"select count(*), sum({measure}) from read_parquet('{_sql_path(part)}/*.parquet')"
+                ).fetchall()[0]
+                if part.exists()
+                else (0, None)
+            )
+            if tuple(got) != tuple(expected):
+                raise LedgerbandError(
+                    f"Parquet {name} for {period}: wrote {got}, the warehouse holds {expected}"
+                )
+            final = root / name / f"period={period}"
+            final.parent.mkdir(parents=True, exist_ok=True)
+            old = final.with_name(final.name + ".old")
+            shutil.rmtree(old, ignore_errors=True)
+            if final.exists():
+                final.rename(old)
+            if part.exists():
+                part.rename(final)
+            shutil.rmtree(old, ignore_errors=True)
+        finally:
+            shutil.rmtree(staging, ignore_errors=True)
+        rows[name] = int(expected[0])
+    return rows
 
 
 def _sql_path(path: Path) -> str:
@@ -128,6 +197,15 @@ def _sql_path(path: Path) -> str:
 def publish_task(ctx: RunContext, train: TrainSummary) -> PublishResult:
     with open_warehouse(ctx.warehouse) as con:
         return publish_snapshot(con, ctx, train.model_version)
+
+
+@task(name="write-parquet", task_run_name="write-parquet-{ctx.period}", cache_policy=NO_CACHE, **IO_RETRIES)
+def parquet_task(ctx: RunContext) -> dict[str, int]:
+    """The published month as Parquet by period (readers.parquet)."""
+    if not ctx.settings.readers.parquet:
+        return {}
+    with open_warehouse(ctx.warehouse) as con:
+        return write_parquet(con, ctx.settings.parquet_dir, str(ctx.period))
 
 
 @task(

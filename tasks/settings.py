@@ -230,6 +230,16 @@ class FeatureSettings(_Section):
     large_debit_threshold: float = Field(100.0, gt=0)
 
 
+class ReaderSettings(_Section):
+    """What readers get: the published DuckDB copy, Parquet by period, and small-cell suppression."""
+
+    min_cell_customers: int = Field(10, ge=1)
+    """Aggregate cells with fewer customers are published as null and marked suppressed (threshold rule of
+    statistical disclosure control; 10 is common practice)."""
+    parquet: bool = True
+    """Also write each published table as Parquet, partitioned by period (hive style)."""
+
+
 class ScheduleSettings(_Section):
     """The monthly deployment: when it runs, where, and how long a run may take."""
 
@@ -303,6 +313,7 @@ class Settings(BaseSettings):
     features: FeatureSettings = FeatureSettings()
     payroll: PayrollSettings = PayrollSettings()
     labels: LabelSettings = LabelSettings()
+    readers: ReaderSettings = ReaderSettings()
     schedule: ScheduleSettings = ScheduleSettings()
     alerts: AlertSettings = AlertSettings()
     demo: DemoSettings = DemoSettings()
@@ -331,6 +342,10 @@ class Settings(BaseSettings):
     @property
     def published_path(self) -> Path:
         return self.home / "published" / "ledgerband_published.duckdb"
+
+    @property
+    def parquet_dir(self) -> Path:
+        return self.home / "published" / "parquet"
 
     @property
     def reports_dir(self) -> Path:

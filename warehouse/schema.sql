@@ -273,6 +273,25 @@ select
 from published.income_bands_history as h
 inner join published.snapshots as s on s.run_id = h.run_id and s.is_current;
 
+alter table published.income_bands_history add column if not exists currency varchar;
+alter table published.band_summary_history add column if not exists suppressed boolean;
+
+create table if not exists published.band_movers_history (
+    run_id varchar not null,
+    period varchar not null,
+    previous_period varchar not null,
+    from_band varchar not null,
+    to_band varchar not null,
+    band_source varchar not null,
+    customer_count bigint not null,
+    suppressed boolean not null
+);
+
+create or replace view published.band_movers as
+select h.*
+from published.band_movers_history as h
+inner join published.snapshots as s on s.run_id = h.run_id and s.is_current;
+
 create or replace view published.band_summary as
 select h.*
 from published.band_summary_history as h

@@ -34,6 +34,7 @@ STAGE_AUDIENCE = {
     "publish": "publish",
     "report": "publish",
     "reader_copy": "publish",
+    "parquet": "publish",
 }
 AUDIENCES = ("data", "model", "publish")
 BAD_INPUT_CHECKS = frozenset({"manifest_reconciliation", "extract_contract"})

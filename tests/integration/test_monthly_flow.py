@@ -142,6 +142,7 @@ def test_every_stage_is_recorded_in_ops_runs(home, first_run):
         "publish",
         "report",
         "reader_copy",
+        "parquet",
     ]
     assert all(s["status"] == "ok" and s["seconds"] is not None for s in stages)
 
@@ -376,3 +377,64 @@ def test_a_published_month_whose_readers_copy_fails_is_still_recorded_as_publish
     )
     assert status == "published" and "reader_copy failed: PermissionError" in error
     assert _q(home, "select run_id from published.snapshots where is_current") == [(run_id,)]
+
+
+def test_readme_lists_the_published_contract_from_the_comments(first_run):
+    from ledgerband.tasks.contract import markdown
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text()
+    documented = readme.split("<!-- contract:start -->\n", 1)[1].split("\n<!-- contract:end -->", 1)[0]
+    reader = duckdb.connect(str(first_run.published_path), read_only=True)
+    try:
+        catalog = reader.execute("select current_database()").fetchall()[0][0]
+        assert documented == markdown(reader, catalog), (
+            "README and comments differ: run `ledgerband contract`"
+        )
+        undescribed = reader.execute(
+            "select table_name, column_name from duckdb_columns() where not internal and comment is null"
+        ).fetchall()
+        assert undescribed == []
+    finally:
+        reader.close()
+
+
+def test_small_cells_are_suppressed_for_readers_and_only_those(home, first_run):
+    # Threshold rule of statistical disclosure control (common practice: 10): readers never see a count
+    # under the threshold; every count at or above it is shown.
+    reader = duckdb.connect(str(first_run.published_path), read_only=True)
+    try:
+        shown_small = reader.execute(
+            "select count(*) from band_summary where customer_count < 10"
+        ).fetchall()[0][0]
+        marked = reader.execute(
+            "select count(*) filter (where suppressed), count(*) filter (where suppressed and customer_count is null) "
+            "from band_summary"
+        ).fetchall()[0]
+    finally:
+        reader.close()
+    exact = _q(
+        home,
+        "select count(*) filter (where customer_count < 10), count(*) filter (where suppressed) "
+        "from published.band_summary",
+    )[0]
+    assert shown_small == 0 and marked[0] == marked[1] == exact[0] == exact[1] > 0
+
+
+def test_parquet_by_period_equals_the_published_tables(home, first_run):
+    root = home / "published" / "parquet"
+    con = duckdb.connect(str(first_run.published_path), read_only=True)
+    try:
+        for table, measure in (
+            ("income_bands", "annual_income_estimate"),
+            ("band_summary", "customer_count"),
+        ):
+            parquet = con.execute(
+                f"select period, count(*), sum({measure}) from read_parquet('{root}/{table}/*/*.parquet', "
+                "hive_partitioning = true) group by all"
+            ).fetchall()
+            published = con.execute(
+                f"select period, count(*), sum({measure}) from {table} group by all"
+            ).fetchall()
+            assert parquet == published and parquet[0][0] == "2026-10"
+    finally:
+        con.close()

@@ -1,7 +1,7 @@
 -- published.income_bands_history (rows of one snapshot)
 -- Grain: one row per customer in the run. Key: run_id, customer_id.
 -- Reads: ml.predictions, ref.income_bands.
--- Parameters: $run_id, $period, $model_version, $published_at.
+-- Parameters: $run_id, $period, $model_version, $published_at, $currency.
 -- Observed salary wins over the model, then an observed pension: a customer paid here is banded on what
 -- they are paid. The amount (observed: to cents; estimated: to intervals.round_to) and its band were set
 -- together by ledgerband.tasks.bands when the run trained, so the published amount and its band always
@@ -41,6 +41,7 @@ final as (
         income_band,
         band_source,
         income_value::decimal(18, 2) as annual_income_estimate,
+        $currency as currency,
         estimate_low::decimal(18, 2) as estimate_low,
         estimate_high::decimal(18, 2) as estimate_high,
         round(band_confidence, 2)::decimal(3, 2) as band_confidence,
