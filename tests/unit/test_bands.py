@@ -75,7 +75,13 @@ def test_published_band_sql_agrees_with_python_at_every_edge(con):
         con,
         "published.income_bands_history",
         "income_bands",
-        {"run_id": "r1", "period": "2026-10", "model_version": "m", "published_at": datetime(2026, 11, 2)},
+        {
+            "run_id": "r1",
+            "period": "2026-10",
+            "model_version": "m",
+            "published_at": datetime(2026, 11, 2),
+            "currency": "EUR",
+        },
     )
     got = con.execute(
         "select customer_id, income_band, band_source, annual_income_estimate::double "
