@@ -5,7 +5,7 @@ BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed-$(shell cat pyproject.toml | sha256sum | cut -c1-16)
 
 .DEFAULT_GOAL := help
-.PHONY: help venv demo test test-all bench lint format clean
+.PHONY: help venv demo test test-all bench lint format clean browser
 
 help: ## list the targets
 	@grep -E '^[a-z-]+:.*## ' $(MAKEFILE_LIST) | awk -F':.*## ' '{printf "  make %-10s %s\n", $$1, $$2}'
@@ -22,6 +22,11 @@ venv: $(STAMP) ## create or refresh .venv from pyproject.toml
 
 demo: venv ## install, generate demo extracts, run the monthly flow, write the report
 	$(BIN)/ledgerband demo
+
+browser: ## install Debian's chromium and chromium-driver for the report's browser test (needs root; skipped if present)
+	@test -x /usr/bin/chromium -a -x /usr/bin/chromedriver \
+		|| (DEBIAN_FRONTEND=noninteractive apt-get install -y -q chromium chromium-driver > /tmp/ledgerband-apt.log 2>&1 \
+		|| (echo "could not install chromium (see /tmp/ledgerband-apt.log): the browser test will be skipped"; true))
 
 test: venv ## lint, then run the default test suite (unit, sql, reference, integration; no benchmarks)
 	@$(MAKE) --no-print-directory lint

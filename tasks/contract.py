@@ -110,10 +110,10 @@ HISTORY = {
 
 def describe(name: str) -> tuple[str, dict[str, str]]:
     if name in HISTORY:
-        table, columns = TABLES[HISTORY[name]]
-        return "Every published snapshot, by period (same columns as " + HISTORY[name] + "). " + table.split(
-            ": ", 1
-        )[-1], columns
+        current = HISTORY[name]
+        table, columns = TABLES[current]
+        rows = table.split(": ", 1)[-1]
+        return f"Every published snapshot, by period; same columns as {current}. Rows: {rows}", columns
     return TABLES[name]
 
 

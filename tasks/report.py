@@ -111,11 +111,15 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
             "sum(bonus_amount)::double as bonus_amount from features.customer_label group by all order by all",
             [],
         )
+    from ledgerband.tasks.plots import draw_all
+
+    plots = draw_all(con, run_id, settings.bands.currency, settings.bands.edges)
     truth_file = settings.demo_truth_path(run_id)
     truth = json.loads(truth_file.read_text()) if truth_file.is_file() else None
     return {
         "run_id": run_id,
         "truth": truth,
+        "plots": plots,
         "labels": labels,
         "period": period,
         "generated_at": datetime.now().isoformat(timespec="seconds"),
@@ -167,12 +171,57 @@ def render(context: dict) -> str:
 
 
 def write_report(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> Path:
-    out = ctx.settings.reports_dir / str(ctx.period) / "index.html"
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_name("index.html.incoming")
-    tmp.write_text(render(gather(con, ctx)), encoding="utf-8")
-    tmp.replace(out)
-    return out
+    """The run's report, kept per run (`<period>/<run_id>.html`); `<period>/index.html` is the latest run
+    of the month and `reports/index.html` lists every run. Each file is written beside and renamed in."""
+    folder = ctx.settings.reports_dir / str(ctx.period)
+    folder.mkdir(parents=True, exist_ok=True)
+    page = render(gather(con, ctx))
+    run_file = folder / f"{ctx.run_id}.html"
+    for target in (run_file, folder / "index.html"):
+        _write_atomically(target, page)
+    _write_atomically(ctx.settings.reports_dir / "index.html", render_index(con, ctx.settings.reports_dir))
+    return folder / "index.html"
+
+
+def _write_atomically(target: Path, text: str) -> None:
+    tmp = target.with_name(target.name + ".incoming")
+    tmp.write_text(text, encoding="utf-8")
+    tmp.replace(target)
+
+
+def render_index(con: duckdb.DuckDBPyConnection, reports_dir: Path) -> str:
+    """Every run, newest first: period, status, how it ended, champion, and a link to its report."""
+    from html import escape
+
+    rows = con.execute(
+        """
+        select r.run_id, r.period, r.started_at, r.status, r.error,
+               (select string_agg(d.gate || ' ' || d.decision, ', ' order by d.decided_at)
+                from published.decisions as d where d.run_id = r.run_id) as gates,
+               (select candidate from ml.model_runs as m where m.run_id = r.run_id and m.is_champion) as champion
+        from ops.runs as r
+        order by r.started_at desc
+        """
+    ).fetchall()
+    body = []
+    for run_id, period, started, status, error, gates, champion in rows:
+        link = f"{period}/{run_id}.html"
+        exists = (reports_dir / link).exists()
+        name = f'<a href="{escape(link)}">{escape(run_id[:8])}</a>' if exists else escape(run_id[:8])
+        body.append(
+            f'<tr><td>{escape(str(period))}</td><td>{escape(str(started)[:19])}</td><td class="{escape(status)}">'
+            f"{escape(status)}</td><td>{escape(gates or '–')}</td><td>{escape(champion or '–')}</td>"
+            f"<td>{name}</td><td>{escape((error or '')[:300])}</td></tr>"
+        )
+    return (
+        '<!doctype html><html lang="en"><head><meta charset="utf-8"><title>ledgerband runs</title>'
+        "<style>body{font-family:system-ui,sans-serif;margin:2rem;max-width:80rem}table{border-collapse:collapse}"
+        "td,th{border-bottom:1px solid #ddd;padding:.3rem .6rem;text-align:left;vertical-align:top}"
+        ".published{color:#1a7f37}.withheld{color:#9a6700}.stopped,.failed{color:#cf222e}</style></head><body>"
+        "<h1>ledgerband runs</h1><p>Internal reporting only; never a substitute for verified income.</p>"
+        "<table><tr><th>Period</th><th>Started</th><th>Status</th><th>Gates</th><th>Champion</th>"
+        "<th>Report</th><th>Why it ended so</th></tr>" + "".join(body) + "</table></body></html>"
+    )
 
 
 @task(name="write-report", task_run_name="write-report-{ctx.period}", cache_policy=NO_CACHE, **IO_RETRIES)

@@ -95,7 +95,7 @@ def exit_code_for(facts: dict) -> int:
 def build_alert(settings, *, run_id: str, flow_run: str, state: str, message: str) -> dict:
     facts = _run_facts(settings, run_id)
     period = facts.get("period")
-    report = settings.reports_dir / period / "index.html" if period else None
+    report = settings.reports_dir / period / f"{run_id}.html" if period else None  # this run's own page
     audience = STAGE_AUDIENCE.get(facts.get("stage") or "", None)
     return {
         "at": datetime.now(UTC).isoformat(timespec="seconds"),

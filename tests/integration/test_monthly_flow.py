@@ -170,6 +170,15 @@ def test_readers_open_the_published_copy_while_the_warehouse_is_held(home, first
 
 def test_report_carries_the_cautions_and_the_model_comparison(first_run):
     html = first_run.report.read_text()
+    # At least five pictures, inline (the page stays one offline file), each titled and explained.
+    import re
+
+    figures = re.findall(r'<figure class="plot" id="plot-([a-z_]+)">(.*?)</figure>', html, flags=re.S)
+    assert len(figures) >= 5
+    for key, body in figures:
+        assert "<svg" in body and "How to read this:" in body, key
+    for loads_from_network in ('src="http', "src='http", 'href="http', "url(http", "<script"):
+        assert loads_from_network not in html
     assert "Internal reporting only" in html and "never replace verified income" in html
     assert "baseline_mean" in html and "linear_regression" in html and "decision_tree" in html
     assert "Published:" in html
@@ -234,7 +243,11 @@ def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(
     [hit] = received
     assert hit["path"] == "/model-owners"
     assert hit["body"]["title"] == "ledgerband 2026-10: run withheld by the accuracy gate"
-    assert "exit code 3" in hit["body"]["message"] and "reports/2026-10/index.html" in hit["body"]["message"]
+    [(withheld_run,)] = _q(home, "select run_id from ops.runs order by started_at desc limit 1")
+    assert (
+        "exit code 3" in hit["body"]["message"]
+        and f"reports/2026-10/{withheld_run}.html" in hit["body"]["message"]
+    )
     assert "Withheld by the accuracy gate" in (home / "reports" / "2026-10" / "index.html").read_text()
     # Readers see the withheld decision next to the unchanged current snapshot.
     reader = duckdb.connect(str(home / "published" / "ledgerband_published.duckdb"), read_only=True)
@@ -438,3 +451,62 @@ def test_parquet_by_period_equals_the_published_tables(home, first_run):
             assert parquet == published and parquet[0][0] == "2026-10"
     finally:
         con.close()
+
+
+def test_every_run_keeps_its_report_and_the_index_lists_them(home, first_run):
+    reports = home / "reports"
+    runs = _q(home, "select run_id from ops.runs")
+    index = (reports / "index.html").read_text()
+    for (run_id,) in runs:
+        assert run_id[:8] in index
+        if (reports / "2026-10" / f"{run_id}.html").exists():
+            assert f'href="2026-10/{run_id}.html"' in index
+    assert (reports / "2026-10" / f"{first_run.run_id}.html").exists()
+    assert "Internal reporting only" in index
+
+
+CHROMIUM, CHROMEDRIVER = Path("/usr/bin/chromium"), Path("/usr/bin/chromedriver")
+
+
+@pytest.mark.skipif(
+    not (CHROMIUM.exists() and CHROMEDRIVER.exists()),
+    reason="Chromium is not installed: `make browser` installs Debian's chromium and chromium-driver",
+)
+def test_the_report_renders_in_a_real_browser(first_run, tmp_path):
+    # Headless Chromium through Selenium, no network: no console errors, every picture drawn with a size,
+    # the cautions visible on the page.
+    from selenium import webdriver
+    from selenium.webdriver.chrome.service import Service
+    from selenium.webdriver.common.by import By
+
+    options = webdriver.ChromeOptions()
+    options.binary_location = str(CHROMIUM)
+    for flag in (
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--no-first-run",
+        f"--user-data-dir={tmp_path / 'profile'}",
+        "--window-size=1280,2000",
+    ):
+        options.add_argument(flag)
+    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
+    driver = webdriver.Chrome(service=Service(str(CHROMEDRIVER)), options=options)
+    try:
+        driver.get(first_run.report.resolve().as_uri())
+        shot = tmp_path / "report.png"
+        driver.save_screenshot(str(shot))
+        assert shot.stat().st_size > 10_000
+        errors = [e for e in driver.get_log("browser") if e["level"] in ("SEVERE", "ERROR")]
+        assert errors == []
+        plots = driver.find_elements(By.CSS_SELECTOR, "figure.plot svg")
+        assert len(plots) >= 5
+        for svg in plots:
+            assert svg.size["width"] > 100 and svg.size["height"] > 100
+        cautions = driver.find_element(By.CSS_SELECTOR, "section.cautions")
+        assert cautions.is_displayed() and "Internal reporting only" in cautions.text
+    finally:
+        driver.quit()
