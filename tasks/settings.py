@@ -55,6 +55,8 @@ class _Section(BaseModel):
 class QualitySettings(_Section):
     max_quarantine_share: float = Field(0.01, ge=0, le=1)
     """Largest share of an extract's rows that may be quarantined before the run stops."""
+    max_field_length: int = Field(128, ge=8)
+    """Longest text a ledger field may hold; a longer one quarantines its record (rule text_field_too_long)."""
     chunk_rows: int = Field(250_000, gt=0)
     """Rows per chunk handed to the row-level expectation suite (bounds memory on large extracts)."""
 

@@ -43,6 +43,8 @@ _EXAMPLE_IDS = 3
 # Helper columns computed for the rules, and the received field a person should see instead.
 _SHOWN_AS = {"amount_value": "amount", "booking_date_value": "booking_date", "txn_id_loaded_before": "txn_id"}
 _EXAMPLES_KEPT = 5
+# Helper columns that hold the name of the received field that broke the rule (text hygiene).
+_NAMES_A_FIELD = ("field_with_control_character", "field_too_long")
 
 
 @dataclass(frozen=True)
@@ -204,12 +206,20 @@ select
     {columns},
     cur.amount_value::double as amount_value,
     cur.booking_date_value,
-    previous.txn_id is not null as txn_id_loaded_before
+    previous.txn_id is not null as txn_id_loaded_before,
+    {control_field} as field_with_control_character,
+    {long_field} as field_too_long
 from staging.ledger_lines_parsed as cur
 left join previous on previous.txn_id = cur.txn_id
 where cur.load_id = $load_id
 order by cur.source_line
 """
+
+
+def _first_field(test: str) -> str:
+    """SQL naming the first received field for which `test` (with {c} for the column) holds, else null."""
+    whens = " ".join(f"when {test.format(c=c)} then '{c}'" for c in LEDGER_COLUMNS)
+    return f"case {whens} end"
 
 
 def validate_load(
@@ -234,11 +244,21 @@ def validate_load(
             shown = _SHOWN_AS.get(column, column)  # a helper column is reported by the field as received
             for item in r.result.get("unexpected_index_list") or []:
                 line = int(item["source_line"])
+                if column in _NAMES_A_FIELD:  # the helper holds the offending field's name: show that field
+                    field = str(text.at[line, column])
+                    failures[line][rule] = f"{field}={str(text.at[line, field])[:60]!r}"
+                    continue
                 value = text.at[line, shown] if shown in text.columns else item.get(column)
                 failures[line][rule] = f"{shown}={None if pd.isna(value) else str(value)!r}"
 
-    query = _PARSED_QUERY.format(columns=", ".join(f"cur.{c}" for c in LEDGER_COLUMNS))
-    reader = con.sql(query, params={"load_id": load_id}).to_arrow_reader(settings.quality.chunk_rows)
+    query = _PARSED_QUERY.format(
+        columns=", ".join(f"cur.{c}" for c in LEDGER_COLUMNS),
+        control_field=_first_field("regexp_matches(cur.{c}, '[\\x00-\\x1f\\x7f]')"),
+        long_field=_first_field("length(cur.{c}) > $max_field_length"),
+    )
+    reader = con.sql(
+        query, params={"load_id": load_id, "max_field_length": settings.quality.max_field_length}
+    ).to_arrow_reader(settings.quality.chunk_rows)
     for batch in reader:
         frame = batch.to_pandas()
         collect(_run(f"{suite_name}.row", parts.row, frame, params), frame)

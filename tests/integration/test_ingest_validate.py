@@ -271,3 +271,32 @@ def test_a_file_left_unsettled_by_a_stopped_run_does_not_poison_its_correction(c
     load = load_extract(con, _ctx("run-2"), manifest)
     v = validate_load(con, load.load_id, settings)
     assert v.rows_quarantined == 0, v.examples
+
+
+def test_control_characters_and_overlong_text_are_quarantined_by_name(con, settings, tmp_path):
+    # A NUL byte (and any C0 control character) inside a field, or a field longer than
+    # quality.max_field_length, quarantines the record with the rule and the field named; others load.
+    import hashlib
+
+    landing = _copy(tmp_path, "ledger_good")
+    folder = landing / "2026-10"
+    extract = folder / "ledger-2026-10.csv"
+    lines = extract.read_text().splitlines()
+    fields = lines[2].split(",")
+    fields[10] = "MER-\x001"  # counterparty_id with a NUL byte
+    lines[2] = ",".join(fields)
+    fields = lines[3].split(",")
+    fields[12] = "R" * 200  # merchant_region far too long
+    lines[3] = ",".join(fields)
+    extract.write_text("\n".join(lines) + "\n")
+    manifest_path = folder / "ledger-2026-10.manifest.json"
+    manifest = json.loads(manifest_path.read_text())
+    manifest["sha256"] = hashlib.sha256(extract.read_bytes()).hexdigest()
+    manifest_path.write_text(json.dumps(manifest))
+    _, v = _ingest(con, landing, settings)
+    assert v.rule_counts == {"text_control_characters": 1, "text_field_too_long": 1}
+    reasons = dict(
+        con.execute("select source_line, reason from quarantine.ledger_lines order by 1").fetchall()
+    )
+    assert reasons[3] == "line 3: text_control_characters (counterparty_id='MER-\\x001')"
+    assert reasons[4].startswith("line 4: text_field_too_long (merchant_region='RRRR")
