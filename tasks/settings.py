@@ -167,6 +167,16 @@ class BandSettings(_Section):
     edges: tuple[float, ...] = (25_000, 40_000, 60_000, 85_000, 120_000)
     """Lower edges of every band but the first, in the ledger currency per year."""
     currency: str = "EUR"
+    """The ledger's currency: every amount must be in it (ISO 4217 alphabetic code)."""
+
+    @field_validator("currency")
+    @classmethod
+    def _iso_4217(cls, v: str) -> str:
+        import pycountry
+
+        if pycountry.currencies.get(alpha_3=v) is None:
+            raise ValueError(f"bands.currency {v!r} is not an ISO 4217 currency code (pycountry's list)")
+        return v
 
     @field_validator("edges")
     @classmethod

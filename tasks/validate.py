@@ -231,7 +231,11 @@ def validate_load(
         raise LedgerbandError(f"no load {load_id} in ops.loads")
     source_file, period, rows_in_file, malformed = facts
     parts = read_suite(suite_name)
-    params = {"period_start": period.start, "period_end": period.end}
+    params = {
+        "period_start": period.start,
+        "period_end": period.end,
+        "ledger_currencies": [settings.bands.currency],
+    }
     failures: dict[int, dict[str, str]] = defaultdict(dict)  # line -> rule -> offending value
 
     def collect(results: list[Any], frame: pd.DataFrame) -> None:

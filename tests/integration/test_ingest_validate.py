@@ -59,7 +59,14 @@ def test_bad_extract_quarantines_each_record_for_the_right_rules(con, settings, 
         4: ["amount_format"],
         5: ["booking_date_in_period"],
         6: ["record_field_count"],
-        7: ["txn_id_unique", "direction_code", "currency_code", "merchant_category_format"],
+        # A malformed currency is not the ledger currency either: both rules name it.
+        7: [
+            "txn_id_unique",
+            "direction_code",
+            "currency_code",
+            "currency_is_ledger_currency",
+            "merchant_category_format",
+        ],
         8: ["booking_date_is_iso_date", "amount_positive"],
     }
     reasons = {r[0]: r[2] for r in rows}
@@ -300,3 +307,37 @@ def test_control_characters_and_overlong_text_are_quarantined_by_name(con, setti
     )
     assert reasons[3] == "line 3: text_control_characters (counterparty_id='MER-\\x001')"
     assert reasons[4].startswith("line 4: text_field_too_long (merchant_region='RRRR")
+
+
+def test_a_booking_in_another_currency_is_quarantined(con, settings, tmp_path):
+    # Amounts in another currency would be summed as the same money. The ledger currency is an ISO 4217
+    # code (checked against pycountry's list when settings load).
+    import hashlib
+
+    landing = _copy(tmp_path, "ledger_good")
+    folder = landing / "2026-10"
+    extract = folder / "ledger-2026-10.csv"
+    lines = extract.read_text().splitlines()
+    header = lines[0].split(",")
+    fields = lines[2].split(",")
+    fields[header.index("currency")] = "USD"
+    lines[2] = ",".join(fields)
+    extract.write_text("\n".join(lines) + "\n")
+    manifest_path = folder / "ledger-2026-10.manifest.json"
+    manifest = json.loads(manifest_path.read_text())
+    manifest["sha256"] = hashlib.sha256(extract.read_bytes()).hexdigest()
+    manifest_path.write_text(json.dumps(manifest))
+    _, v = _ingest(con, landing, settings)
+    assert v.rule_counts == {"currency_is_ledger_currency": 1}
+    assert con.execute("select reason from quarantine.ledger_lines").fetchall() == [
+        ("line 3: currency_is_ledger_currency (currency='USD')",)
+    ]
+
+
+def test_a_ledger_currency_outside_iso_4217_is_a_configuration_error():
+    # Source: ISO 4217 code list as shipped by pycountry (EUR is listed; EUX is not a currency).
+    from pydantic import ValidationError
+
+    assert Settings(bands={"currency": "EUR"}).bands.currency == "EUR"
+    with pytest.raises(ValidationError, match="'EUX' is not an ISO 4217 currency code"):
+        Settings(bands={"currency": "EUX"})
