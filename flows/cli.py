@@ -137,6 +137,16 @@ def _print_result(result) -> None:
     out.print(f"Run report: [bold]{result.report}[/]")
 
 
+def _period(text: str):
+    """A YYYY-MM period from the command line, or exit 2 with the reason."""
+    from ledgerband.tasks.period import Period
+
+    try:
+        return Period.parse(text)
+    except LedgerbandError as exc:
+        _fail(exc)
+
+
 def _quiet(fn, *args, **kwargs):
     """Call a flow with expected failures kept off the console (the caller reports them)."""
     _quiet_expected_failures()
@@ -168,13 +178,9 @@ def demo(
     """Generate demo extracts for a fictional institution and run the monthly flow on them."""
     s = _settings()
     from ledgerband.flows.demo import demo_run
-    from ledgerband.tasks.period import Period
 
     if end_period is not None:
-        try:
-            Period.parse(end_period)
-        except LedgerbandError as exc:
-            _fail(exc)
+        _period(end_period)
 
     out.print(f"Generating demo extracts in {s.demo_landing_dir} and running the monthly flow …")
     result = _run_guarded(
@@ -237,12 +243,7 @@ def run(
 ) -> None:
     """Run the monthly flow for one period on the files in the landing folder."""
     s = _settings()
-    from ledgerband.tasks.period import Period
-
-    try:
-        Period.parse(period)
-    except LedgerbandError as exc:
-        _fail(exc)
+    _period(period)
     landing = landing or s.landing
     if not landing.is_dir():
         _fail(LedgerbandError(f"landing folder {landing} does not exist"))
@@ -264,12 +265,7 @@ def backfill(
     tables never move back in time.
     """
     s = _settings()
-    from ledgerband.tasks.period import Period
-
-    try:
-        first, last = Period.parse(from_), Period.parse(to)
-    except LedgerbandError as exc:
-        _fail(exc)
+    first, last = _period(from_), _period(to)
     if last < first:
         _fail(LedgerbandError(f"--from {first} is after --to {last}"))
     landing = landing or s.landing
@@ -302,16 +298,16 @@ def restate(
     """Replace an accepted month's extract by a corrected one in the landing folder, and run the month."""
     s = _settings()
     from ledgerband.tasks import restate as restatement
-    from ledgerband.tasks.period import Period
     from ledgerband.tasks.warehouse import open_warehouse
 
-    try:
-        p = Period.parse(period)
-    except LedgerbandError as exc:
-        _fail(exc)
+    p = _period(period)
     landing = landing or s.landing
-    with open_warehouse(s.warehouse_path) as con:
-        request = _run_guarded(restatement.begin, con, p, landing, reason)
+
+    def begin() -> str:
+        with open_warehouse(s.warehouse_path) as con:  # a held warehouse is a clear error too
+            return restatement.begin(con, p, landing, reason)
+
+    request = _run_guarded(begin)
     from ledgerband.flows.monthly import monthly_run
 
     try:
@@ -358,12 +354,8 @@ def export(
     """Write one published month's tables (income bands, band summary, band movers) to a folder."""
     s = _settings()
     from ledgerband.tasks.export import export_period
-    from ledgerband.tasks.period import Period
 
-    try:
-        Period.parse(period)
-    except LedgerbandError as exc:
-        _fail(exc)
+    _period(period)
     files = _run_guarded(export_period, s.published_path, period, format.value, to)
     for name, path in files.items():
         out.print(f"{name}: {path}", highlight=False)

@@ -54,9 +54,13 @@ def export_period(published: Path, period: str, fmt: str, target: Path) -> dict[
             name = table.removesuffix("_history")
             path = target / f"{name}_{period}.{fmt}"
             columns = _safe_select(con, table) if fmt == "csv" else "*"
-            query = f"select {columns} from {table} where run_id = '{run_id.replace(chr(39), '')}'"
+            # The run id is bound, never written into the SQL text (a temporary table of the rows).
+            con.execute(
+                f"create or replace temp table export_rows as select {columns} from {table} where run_id = ?",
+                [run_id],
+            )
             options = "format csv, header true" if fmt == "csv" else "format parquet"
-            con.execute(f"copy ({query}) to '{_quote(path)}' ({options})")
+            con.execute(f"copy export_rows to '{_quote(path)}' ({options})")
             out[name] = path
         return out
     finally:

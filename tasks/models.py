@@ -152,6 +152,17 @@ class CandidateResult:
         values = getattr(self, metric)
         return float(np.std(values, ddof=1)) if len(values) > 1 else 0.0
 
+    def figures(self) -> dict:
+        """Mean (and sd) of every figure across the splits: what ml.model_runs and the summary show."""
+        return {
+            "rmse_mean": self.mean("rmse"),
+            "rmse_std": self.std("rmse"),
+            "mae_mean": self.mean("mae"),
+            "mae_std": self.std("mae"),
+            "band_accuracy_mean": self.mean("band_accuracy"),
+            "within_one_band_mean": self.mean("within_one_band"),
+        }
+
 
 @dataclass
 class Comparison:

@@ -148,14 +148,18 @@ def write_parquet(con: duckdb.DuckDBPyConnection, root: Path, period: str) -> di
     ).fetchall()
     rows = {}
     for name, history in PARQUET_TABLES.items():
-        query = f"select * from ({READER_TABLES[history]}) where run_id = '{run_id.replace(chr(39), '')}'"
+        # The snapshot's rows in a temporary table (run id bound, never written into the SQL text).
+        con.execute(
+            f"create or replace temp table parquet_rows as select * from ({READER_TABLES[history]}) where run_id = ?",
+            [run_id],
+        )
         measure = "annual_income_estimate" if name == "income_bands" else "customer_count"
-        expected = con.execute(f"select count(*), sum({measure}) from ({query})").fetchall()[0]
+        expected = con.execute(f"select count(*), sum({measure}) from parquet_rows").fetchall()[0]
         staging = root / f".incoming-{uuid.uuid4().hex[:8]}"
         staging.mkdir(parents=True)
         try:
             con.execute(
-                f"copy ({query}) to '{_sql_path(staging / name)}' (format parquet, partition_by (period))"
+                f"copy parquet_rows to '{_sql_path(staging / name)}' (format parquet, partition_by (period))"
             )
             part = staging / name / f"period={period}"
             got = (
@@ -180,6 +184,7 @@ def write_parquet(con: duckdb.DuckDBPyConnection, root: Path, period: str) -> di
             shutil.rmtree(old, ignore_errors=True)
         finally:
             shutil.rmtree(staging, ignore_errors=True)
+            con.execute("drop table if exists parquet_rows")
         rows[name] = int(expected[0])
     return rows
 

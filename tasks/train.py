@@ -162,17 +162,7 @@ def summarise(summary: TrainSummary, ev: Evaluation, settings: Settings) -> Trai
     r, sk = ev.comparison.results, ev.skill
     champ = r[sk.champion]
     summary.candidates = [
-        {
-            "name": c.name,
-            "is_baseline": c.name in BASELINES,
-            "rmse_mean": c.mean("rmse"),
-            "rmse_std": c.std("rmse"),
-            "mae_mean": c.mean("mae"),
-            "mae_std": c.std("mae"),
-            "band_accuracy_mean": c.mean("band_accuracy"),
-            "within_one_band_mean": c.mean("within_one_band"),
-        }
-        for c in r.values()
+        {"name": c.name, "is_baseline": c.name in BASELINES, **c.figures()} for c in r.values()
     ]
     summary.n_compared = ev.n_compared
     summary.champion = sk.champion
@@ -335,12 +325,7 @@ def _write_scores(con: duckdb.DuckDBPyConnection, run_id: str, period: str, ev: 
                 "run_id": run_id,
                 "period": period,
                 "candidate": c.name,
-                "rmse_mean": c.mean("rmse"),
-                "rmse_std": c.std("rmse"),
-                "mae_mean": c.mean("mae"),
-                "mae_std": c.std("mae"),
-                "band_accuracy_mean": c.mean("band_accuracy"),
-                "within_one_band_mean": c.mean("within_one_band"),
+                **c.figures(),
                 "n_labelled": ev.n_labelled,
                 "n_compared": ev.n_compared,
                 "n_folds": len(c.rmse),

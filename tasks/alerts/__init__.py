@@ -23,6 +23,8 @@ import uuid
 from datetime import UTC, datetime
 from pathlib import Path
 
+from ledgerband.tasks.errors import GateStopped
+
 STAGE_AUDIENCE = {
     "ingest": "data",
     "validate": "data",
@@ -37,7 +39,6 @@ STAGE_AUDIENCE = {
     "parquet": "publish",
 }
 AUDIENCES = ("data", "model", "publish")
-BAD_INPUT_CHECKS = frozenset({"manifest_reconciliation", "extract_contract"})
 
 
 def write_alert(log_path: Path, alert: dict) -> dict:
@@ -85,7 +86,7 @@ def _run_facts(settings, run_id: str) -> dict:
 def exit_code_for(facts: dict) -> int:
     """The exit code the CLI gives for this ending (see README: exit codes)."""
     if facts.get("status") in ("stopped", "withheld"):
-        return 2 if facts.get("check") in BAD_INPUT_CHECKS else 3
+        return 2 if facts.get("check") in GateStopped.BAD_INPUT_CHECKS else 3
     error = facts.get("error") or ""
     if error.startswith(("LedgerbandError", "ExtractError", "ValidationEngineError", "ValueError")):
         return 2

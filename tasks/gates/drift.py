@@ -128,13 +128,12 @@ def drift_decision(
     }
     stop = drift[drift["psi"] >= d.psi_stop]
     warn = drift[(drift["psi"] >= d.psi_warn) & (drift["psi"] < d.psi_stop)]
-    words = lambda rows: ", ".join(f"{s} {p:.3f}" for s, p in zip(rows["subject"], rows["psi"], strict=True))  # noqa: E731
     if len(stop):
         return Decision(
             DRIFT,
             "drift",
             False,
-            f"since {earlier_period}, PSI >= drift.psi_stop {d.psi_stop}: {words(stop)}. What would change the "
+            f"since {earlier_period}, PSI >= drift.psi_stop {d.psi_stop}: {_words(stop)}. What would change the "
             "answer: confirm the change is real (a new product, a re-sent extract) and raise drift.psi_stop for "
             "this run, or fix the feed",
             figures,
@@ -142,7 +141,7 @@ def drift_decision(
         )
     notes = []
     if len(warn):
-        notes.append(f"moderate drift since {earlier_period} (PSI >= {d.psi_warn}): {words(warn)}")
+        notes.append(f"moderate drift since {earlier_period} (PSI >= {d.psi_warn}): {_words(warn)}")
     if (
         out_of_time
         and out_of_time.get("mae_rise") is not None
@@ -164,6 +163,10 @@ def drift_decision(
         figures,
         thresholds,
     )
+
+
+def _words(rows: pd.DataFrame) -> str:
+    return ", ".join(f"{s} {p:.3f}" for s, p in zip(rows["subject"], rows["psi"], strict=True))
 
 
 def earlier_snapshot(con, period: str) -> tuple[str, str, str] | None:

@@ -280,26 +280,31 @@ def test_a_file_left_unsettled_by_a_stopped_run_does_not_poison_its_correction(c
     assert v.rows_quarantined == 0, v.examples
 
 
+def _reissue(folder: Path, lines: list[str]) -> None:
+    """Write the month's extract with these lines and re-sign its manifest, as a sender re-issuing it would."""
+    import hashlib
+
+    extract = folder / "ledger-2026-10.csv"
+    extract.write_text("\n".join(lines) + "\n")
+    manifest_path = folder / "ledger-2026-10.manifest.json"
+    manifest = json.loads(manifest_path.read_text())
+    manifest["sha256"] = hashlib.sha256(extract.read_bytes()).hexdigest()
+    manifest_path.write_text(json.dumps(manifest))
+
+
 def test_control_characters_and_overlong_text_are_quarantined_by_name(con, settings, tmp_path):
     # A NUL byte (and any C0 control character) inside a field, or a field longer than
     # quality.max_field_length, quarantines the record with the rule and the field named; others load.
-    import hashlib
-
     landing = _copy(tmp_path, "ledger_good")
     folder = landing / "2026-10"
-    extract = folder / "ledger-2026-10.csv"
-    lines = extract.read_text().splitlines()
+    lines = (folder / "ledger-2026-10.csv").read_text().splitlines()
     fields = lines[2].split(",")
     fields[10] = "MER-\x001"  # counterparty_id with a NUL byte
     lines[2] = ",".join(fields)
     fields = lines[3].split(",")
     fields[12] = "R" * 200  # merchant_region far too long
     lines[3] = ",".join(fields)
-    extract.write_text("\n".join(lines) + "\n")
-    manifest_path = folder / "ledger-2026-10.manifest.json"
-    manifest = json.loads(manifest_path.read_text())
-    manifest["sha256"] = hashlib.sha256(extract.read_bytes()).hexdigest()
-    manifest_path.write_text(json.dumps(manifest))
+    _reissue(folder, lines)
     _, v = _ingest(con, landing, settings)
     assert v.rule_counts == {"text_control_characters": 1, "text_field_too_long": 1}
     reasons = dict(
@@ -312,21 +317,14 @@ def test_control_characters_and_overlong_text_are_quarantined_by_name(con, setti
 def test_a_booking_in_another_currency_is_quarantined(con, settings, tmp_path):
     # Amounts in another currency would be summed as the same money. The ledger currency is an ISO 4217
     # code (checked against pycountry's list when settings load).
-    import hashlib
-
     landing = _copy(tmp_path, "ledger_good")
     folder = landing / "2026-10"
-    extract = folder / "ledger-2026-10.csv"
-    lines = extract.read_text().splitlines()
+    lines = (folder / "ledger-2026-10.csv").read_text().splitlines()
     header = lines[0].split(",")
     fields = lines[2].split(",")
     fields[header.index("currency")] = "USD"
     lines[2] = ",".join(fields)
-    extract.write_text("\n".join(lines) + "\n")
-    manifest_path = folder / "ledger-2026-10.manifest.json"
-    manifest = json.loads(manifest_path.read_text())
-    manifest["sha256"] = hashlib.sha256(extract.read_bytes()).hexdigest()
-    manifest_path.write_text(json.dumps(manifest))
+    _reissue(folder, lines)
     _, v = _ingest(con, landing, settings)
     assert v.rule_counts == {"currency_is_ledger_currency": 1}
     assert con.execute("select reason from quarantine.ledger_lines").fetchall() == [
