@@ -103,16 +103,22 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
         )
     records = read_records(path)
     enforce(con, ctx, extract_contract_decision(records.header, source=path))
+    if records.table.num_rows + len(records.malformed) == 0:
+        raise ExtractError(
+            f"{path}: rule extract_has_records: no data records after line 1 (header); a month's ledger "
+            "extract always holds postings, so an empty one is a failed export (manifest "
+            f"{manifest.path.name} says {manifest.row_count})"
+        )
 
     load_id = loads.new_load_id()
     now = datetime.now()
     with transaction(con):
         loads.forget_unaccepted(con, sha, loads.LEDGER)
         _insert_records(con, "raw.ledger_lines", records, LEDGER_COLUMNS, load_id, path)
-        for line, text, reason in records.malformed:
+        for line, text, reason, rule in records.malformed:
             con.execute(
-                "insert into quarantine.ledger_lines values (?, ?, ?, ['record_field_count'], ?, ?, ?)",
-                [load_id, str(path), line, f"line {line} {reason}", text, now],
+                "insert into quarantine.ledger_lines values (?, ?, ?, [?], ?, ?, ?)",
+                [load_id, str(path), line, rule, f"line {line}: {rule} ({reason})", text, now],
             )
         credit, debit, unreadable = con.execute(_TOTALS, [load_id]).fetchall()[0]
         counts = FileCounts(
@@ -172,7 +178,7 @@ def load_customers(con: duckdb.DuckDBPyConnection, ctx: RunContext, path: Path) 
     records = read_records(path)
     _check_customer_header(path, records.header)
     if records.malformed:
-        line, _, reason = records.malformed[0]
+        line, _, reason, _ = records.malformed[0]
         raise ExtractError(
             f"{path}: line {line} {reason} ({len(records.malformed)} malformed record(s) in all)"
         )

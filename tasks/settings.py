@@ -55,6 +55,9 @@ class _Section(BaseModel):
 class QualitySettings(_Section):
     max_quarantine_share: float = Field(0.01, ge=0, le=1)
     """Largest share of an extract's rows that may be quarantined before the run stops."""
+    max_broken_chain_share: float = Field(0.01, ge=0, le=1)
+    """Largest share of an extract's accounts whose balances may fail to chain (those accounts' postings
+    are quarantined) before the run stops: many breaks mean a damaged extract, not a few bad accounts."""
     max_field_length: int = Field(128, ge=8)
     """Longest text a ledger field may hold; a longer one quarantines its record (rule text_field_too_long)."""
     chunk_rows: int = Field(250_000, gt=0)

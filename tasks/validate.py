@@ -27,11 +27,12 @@ import pandas as pd
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
-from ledgerband.tasks import loads
+from ledgerband.tasks import codelists, loads
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import LedgerbandError, ValidationEngineError
 from ledgerband.tasks.gates import QUALITY, Decision, enforce
 from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
+from ledgerband.tasks.landing.records import INGEST_RULES
 from ledgerband.tasks.settings import Settings
 from ledgerband.tasks.warehouse import open_warehouse, transaction
 
@@ -41,10 +42,21 @@ ROW_TYPE_PREFIX = "expect_column_values_to_"
 RESULT_FORMAT = {"result_format": "COMPLETE", "unexpected_index_column_names": ["source_line"]}
 _EXAMPLE_IDS = 3
 # Helper columns computed for the rules, and the received field a person should see instead.
-_SHOWN_AS = {"amount_value": "amount", "booking_date_value": "booking_date", "txn_id_loaded_before": "txn_id"}
+_SHOWN_AS = {
+    "amount_value": "amount",
+    "booking_date_value": "booking_date",
+    "txn_id_loaded_before": "txn_id",
+    "customer_in_reference": "customer_id",
+    "balance_chain_broken": "account_id",
+    "btc_domain": "bank_txn_code",
+    "btc_domain_family": "bank_txn_code",
+    "btc_subfamily": "bank_txn_code",
+}
 _EXAMPLES_KEPT = 5
 # Helper columns that hold the name of the received field that broke the rule (text hygiene).
 _NAMES_A_FIELD = ("field_with_control_character", "field_too_long")
+# The rule whose breaks are counted by account as well as by record (quality.max_broken_chain_share).
+CHAIN_RULE = "balance_chain_continuous"
 
 
 @dataclass(frozen=True)
@@ -173,33 +185,100 @@ class ValidationSummary:
     rows_quarantined: int
     rule_counts: dict[str, int] = field(default_factory=dict)
     examples: list[str] = field(default_factory=list)
+    accounts: int = 0
+    broken_chain_accounts: int = 0
+
+    @property
+    def broken_chain_share(self) -> float:
+        return self.broken_chain_accounts / self.accounts if self.accounts else 0.0
 
     @property
     def quarantined_share(self) -> float:
         return self.rows_quarantined / self.rows_in_file if self.rows_in_file else 0.0
 
 
-# The load's records with helper columns the suite's rules read: the parsed values (from the one parse
-# of the text fields, staging.ledger_lines_parsed), and whether a txn_id came in an earlier file that was
-# accepted, or was validated earlier in the same run, and was not quarantined there.
+# The load's records with helper columns the suite's rules read (documented in the suite's meta):
+# - the parsed values, from the one parse of the text fields (staging.ledger_lines_parsed);
+# - txn_id_loaded_before: the txn_id came in an earlier file that was accepted, or was validated earlier
+#   in the same run, and was not quarantined there;
+# - customer_in_reference: the customer_id is in the current customer reference file;
+# - balance_chain_broken: the account's balances do not chain in this extract. Each posting's balance
+#   before it (balance_after minus the signed amount) must be a balance the account reached: after
+#   another of its postings in this extract, or in the previous month's extract. A chain has one start
+#   (its opening balance, unknown) when the account has no postings the month before, none otherwise;
+#   more starts mean a posting is missing (or was altered). The test is set-based (one hash anti-join
+#   and one aggregate) and needs no posting order within a day, which extracts do not promise.
 _PARSED_QUERY = """
 with this_load as (
-    select loaded_at, run_id from ops.loads where load_id = $load_id
+    select loaded_at, run_id, period from ops.loads where load_id = $load_id
 ),
-previous as (
-    select distinct r.txn_id
-    from raw.ledger_lines as r
-    inner join ops.loads as l on l.load_id = r.load_id and l.dataset = 'ledger'
-    anti join quarantine.ledger_lines as q on q.load_id = r.load_id and q.source_line = r.source_line
-    where r.load_id <> $load_id
+earlier_loads as (
+    select l.load_id, l.period
+    from ops.loads as l, this_load as t
+    where l.dataset = 'ledger' and l.load_id <> $load_id
         and (
             l.status = 'accepted'
             -- a file validated earlier in this same run; a 'loaded' file left by a run that stopped
             -- or crashed is not evidence of anything
-            or (l.status = 'loaded' and l.run_id = (select run_id from this_load)
-                and l.loaded_at < (select loaded_at from this_load))
+            or (l.status = 'loaded' and l.run_id = t.run_id and l.loaded_at < t.loaded_at)
         )
-        and r.txn_id in (select txn_id from raw.ledger_lines where load_id = $load_id)
+),
+previous as (
+    select distinct r.txn_id
+    from raw.ledger_lines as r
+    inner join earlier_loads as l on l.load_id = r.load_id
+    anti join quarantine.ledger_lines as q on q.load_id = r.load_id and q.source_line = r.source_line
+    where r.txn_id in (select txn_id from raw.ledger_lines where load_id = $load_id)
+),
+reference as (
+    select distinct customer_id from staging.customer_reference
+),
+postings as (
+    select
+        account_id,
+        source_line,
+        balance_after_value,
+        -- only a posting whose amount reads back exactly as written (positive, two places) and that
+        -- was not loaded before can start a chain: a garbled amount or a booking sent again is its own
+        -- rule's finding, not a missing posting
+        case when amount_value > 0 and amount_value::varchar = amount and previous.txn_id is null then
+            balance_after_value - case direction when 'CRDT' then amount_value when 'DBIT' then -amount_value end
+        end as balance_before
+    from staging.ledger_lines_parsed as lines
+    left join previous on previous.txn_id = lines.txn_id
+    where lines.load_id = $load_id and lines.account_id is not null
+),
+month_before as (
+    select max(period) as period from earlier_loads where period < (select period from this_load)
+),
+reached as (
+    select account_id, balance_after_value as balance, source_line from postings
+    union all
+    select p.account_id, p.balance_after_value, null
+    from staging.ledger_lines_parsed as p
+    inner join earlier_loads as l on l.load_id = p.load_id
+    where l.period = (select period from month_before)
+        and p.account_id in (select account_id from postings)
+),
+chain_starts as (
+    select
+        postings.account_id,
+        count(*) filter (where postings.balance_before is not null) as starts
+    from postings
+    anti join reached
+        on reached.account_id = postings.account_id
+        and reached.balance = postings.balance_before
+        and reached.source_line is distinct from postings.source_line
+    group by postings.account_id
+),
+continued as (
+    select distinct account_id from reached where source_line is null
+),
+broken_chains as (
+    select chain_starts.account_id
+    from chain_starts
+    left join continued on continued.account_id = chain_starts.account_id
+    where chain_starts.starts > case when continued.account_id is null then 1 else 0 end
 )
 select
     cur.source_line,
@@ -207,10 +286,17 @@ select
     cur.amount_value::double as amount_value,
     cur.booking_date_value,
     previous.txn_id is not null as txn_id_loaded_before,
+    cur.customer_id is null or reference.customer_id is not null as customer_in_reference,
+    broken_chains.account_id is not null as balance_chain_broken,
+    cur.btc_domain,
+    cur.btc_domain || '/' || cur.btc_family as btc_domain_family,
+    cur.btc_subfamily,
     {control_field} as field_with_control_character,
     {long_field} as field_too_long
 from staging.ledger_lines_parsed as cur
 left join previous on previous.txn_id = cur.txn_id
+left join reference on reference.customer_id = cur.customer_id
+left join broken_chains on broken_chains.account_id = cur.account_id
 where cur.load_id = $load_id
 order by cur.source_line
 """
@@ -229,12 +315,13 @@ def validate_load(
     facts = loads.load_facts(con, load_id)
     if facts is None:
         raise LedgerbandError(f"no load {load_id} in ops.loads")
-    source_file, period, rows_in_file, malformed = facts
+    source_file, period, rows_in_file, _ = facts
     parts = read_suite(suite_name)
     params = {
         "period_start": period.start,
         "period_end": period.end,
         "ledger_currencies": [settings.bands.currency],
+        **codelists.suite_parameters(),
     }
     failures: dict[int, dict[str, str]] = defaultdict(dict)  # line -> rule -> offending value
 
@@ -305,10 +392,12 @@ def validate_load(
         ],
     )
     with transaction(con):
-        # Rerunning validation on the same load replaces its rule findings (malformed records stay).
+        # Rerunning validation on the same load replaces its rule findings (records quarantined while
+        # the file was read stay).
         con.execute(
-            "delete from quarantine.ledger_lines where load_id = ? and failed_rules <> ['record_field_count']",
-            [load_id],
+            "delete from quarantine.ledger_lines where load_id = ? "
+            "and not (len(failed_rules) = 1 and list_contains(?, failed_rules[1]))",
+            [load_id, list(INGEST_RULES)],
         )
         if len(quarantine):
             con.register("quarantine_rows", quarantine)
@@ -326,12 +415,23 @@ def validate_load(
     for rules in failures.values():
         for rule in rules:
             counts[rule] += 1
-    if malformed:
-        counts["record_field_count"] += int(malformed)
+    for rule, n in con.execute(
+        "select failed_rules[1], count(*) from quarantine.ledger_lines where load_id = ? "
+        "and len(failed_rules) = 1 and list_contains(?, failed_rules[1]) group by 1",
+        [load_id, list(INGEST_RULES)],
+    ).fetchall():
+        counts[rule] += int(n)
     examples = con.execute(
         "select reason from quarantine.ledger_lines where load_id = ? order by source_line limit ?",
         [load_id, _EXAMPLES_KEPT],
     ).fetchall()
+    accounts, broken_accounts = con.execute(
+        "select count(distinct r.account_id), count(distinct r.account_id) filter (where q.source_line is not null) "
+        "from raw.ledger_lines as r left join quarantine.ledger_lines as q "
+        "on q.load_id = r.load_id and q.source_line = r.source_line and list_contains(q.failed_rules, ?) "
+        "where r.load_id = ?",
+        [CHAIN_RULE, load_id],
+    ).fetchall()[0]
     return ValidationSummary(
         load_id=load_id,
         source_file=source_file,
@@ -339,6 +439,8 @@ def validate_load(
         rows_quarantined=int(total_quarantined),
         rule_counts=dict(sorted(counts.items(), key=lambda kv: -kv[1])),
         examples=[e[0] for e in examples],
+        accounts=int(accounts),
+        broken_chain_accounts=int(broken_accounts),
     )
 
 

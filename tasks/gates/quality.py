@@ -16,8 +16,10 @@ from ledgerband.tasks.warehouse import open_warehouse
 
 
 def quality_gate(validations: Sequence[ValidationSummary], settings: Settings) -> Decision:
-    """Each newly loaded extract's quarantined share must not exceed quality.max_quarantine_share."""
+    """Each newly loaded extract's quarantined share must not exceed quality.max_quarantine_share, and
+    the share of its accounts whose balances do not chain must not exceed quality.max_broken_chain_share."""
     limit = settings.quality.max_quarantine_share
+    chain_limit = settings.quality.max_broken_chain_share
     problems = []
     figures = {}
     for v in validations:
@@ -27,7 +29,15 @@ def quality_gate(validations: Sequence[ValidationSummary], settings: Settings) -
             "rows_quarantined": v.rows_quarantined,
             "quarantined_share": share,
             "rule_counts": v.rule_counts,
+            "accounts": v.accounts,
+            "broken_chain_accounts": v.broken_chain_accounts,
         }
+        if v.broken_chain_share > chain_limit:
+            problems.append(
+                f"{v.source_file}: {v.broken_chain_accounts} of {v.accounts} accounts "
+                f"({pct(v.broken_chain_share)}) break rule balance_chain_continuous, more than "
+                f"quality.max_broken_chain_share {pct(chain_limit)}: postings are missing or altered"
+            )
         if share > limit:
             top = ", ".join(f"{rule} ({n})" for rule, n in list(v.rule_counts.items())[:3])
             first = f"; first: {v.examples[0]}" if v.examples else ""
@@ -35,7 +45,7 @@ def quality_gate(validations: Sequence[ValidationSummary], settings: Settings) -
                 f"{v.source_file}: quarantined share {pct(share)} ({v.rows_quarantined} of {v.rows_in_file} "
                 f"records) exceeds quality.max_quarantine_share {pct(limit)}; rules broken most: {top}{first}"
             )
-    thresholds = {"max_quarantine_share": limit}
+    thresholds = {"max_quarantine_share": limit, "max_broken_chain_share": chain_limit}
     if problems:
         return Decision(QUALITY, "quarantine_share", False, " | ".join(problems), figures, thresholds)
     reason = (

@@ -31,6 +31,9 @@ def _ctx(run_id: str, settings: Settings | None = None) -> RunContext:
 
 
 def _ingest(con, landing: Path, settings):
+    """What the ingest and validate stages do: the customer file first (ledger rows are checked against
+    it), then the month's extract."""
+    load_customers(con, _ctx("run-1", settings), landing / "customers.csv")
     [manifest] = find_manifests(landing, Period(2026, 10))
     load = load_extract(con, _ctx("run-1", settings), manifest)
     return load, validate_load(con, load.load_id, settings)
@@ -66,6 +69,7 @@ def test_bad_extract_quarantines_each_record_for_the_right_rules(con, settings, 
             "currency_code",
             "currency_is_ledger_currency",
             "merchant_category_format",
+            "merchant_category_listed",  # '54' is no ISO 18245 code either
         ],
         8: ["booking_date_is_iso_date", "amount_positive"],
     }
@@ -88,7 +92,7 @@ def test_bad_extract_fails_the_quality_gate_and_is_rejected(con, settings, tmp_p
     decision = quality_gate([v], settings)
     assert not decision.passed and "6 of 7 records" in decision.reason
     loads.settle(con, [v.load_id], decision.passed, decision.reason)
-    assert con.execute("select status from ops.loads").fetchall() == [("rejected",)]
+    assert con.execute("select status from ops.loads where dataset = 'ledger'").fetchall() == [("rejected",)]
 
 
 def test_manifest_row_count_mismatch_stops_and_names_file_and_rule(con, settings, tmp_path):
@@ -272,7 +276,7 @@ def test_a_file_left_unsettled_by_a_stopped_run_does_not_poison_its_correction(c
     landing = _copy(tmp_path, "ledger_good")
     _ingest(con, landing, settings)  # run-1 loads and validates, then stops before its gate settles the load
     extract = landing / "2026-10" / "ledger-2026-10.csv"
-    extract.write_text(extract.read_text().replace("2554.90", "2554.91"))  # the sender corrects a balance
+    extract.write_text(extract.read_text().replace("MER-1", "MER-7"))  # the sender corrects a counterparty
     _rewrite_manifest(landing)
     [manifest] = find_manifests(landing, Period(2026, 10))
     load = load_extract(con, _ctx("run-2"), manifest)

@@ -77,10 +77,22 @@ def test_csv_keeps_leading_zeros_and_text_as_received(tmp_path):
     assert rec.table.column("a").to_pylist() == ["0042"] and rec.table.column("b").to_pylist() == ["001.50"]
 
 
-def test_non_utf8_file_is_refused_with_its_name(tmp_path):
+def test_a_record_that_is_not_utf8_is_set_aside_with_its_field_and_byte(tmp_path):
+    # A Latin-1 byte (0xdf, sharp s) is not UTF-8 (RFC 3629): the record is returned as malformed, its
+    # text kept with the byte escaped; the other records load.
     path = tmp_path / "latin.csv"
-    path.write_bytes("a,b\nStra\xdfe,1\n".encode("latin-1"))
-    with pytest.raises(ExtractError, match="latin.csv"):
+    path.write_bytes("a,b\nStra\xdfe,1\nok,2\n".encode("latin-1"))
+    rec = read_records(path)
+    assert rec.table.column("a").to_pylist() == ["ok"] and rec.table.column("source_line").to_pylist() == [3]
+    [(line, text, reason, rule)] = rec.malformed
+    assert (line, text, rule) == (2, "Stra\\xdfe,1", "text_invalid_utf8")
+    assert reason == "field a is not UTF-8 (byte 0xdf at position 5)"
+
+
+def test_a_header_that_is_not_utf8_refuses_the_file_with_its_name(tmp_path):
+    path = tmp_path / "latin.csv"
+    path.write_bytes("Stra\xdfe,b\n1,2\n".encode("latin-1"))
+    with pytest.raises(ExtractError, match="latin.csv: line 1 \\(header\\) is not UTF-8"):
         read_records(path)
 
 

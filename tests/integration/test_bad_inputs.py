@@ -1,0 +1,107 @@
+"""The bad-input catalogue: each folder in tests/fixtures/bad/ holds one defect and says what must happen.
+
+For every case: a stop names the file and the rule; a quarantine names file, line and rule for exactly
+the damaged records; and no record is lost (records read = records staged + records quarantined). The
+defects are the ways extracts go wrong in the trade (encodings, delimiters, truncation, re-sent files,
+manifest disagreements, code lists: ISO 4217, ISO 18245, ISO 20022); the cases are built by
+tests/fixtures/bad/build.py from one correct ledger whose balances chain.
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+import pytest
+
+from ledgerband.tasks import loads
+from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.errors import ExtractError, GateStopped
+from ledgerband.tasks.gates.quality import quality_gate
+from ledgerband.tasks.ingest import load_customers, load_extract
+from ledgerband.tasks.landing.manifest import find_manifests
+from ledgerband.tasks.period import Period
+from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.validate import validate_load
+from ledgerband.tasks.warehouse import run_sql_file
+
+CATALOGUE = Path(__file__).parents[1] / "fixtures" / "bad"
+CASES = sorted(p.name for p in CATALOGUE.iterdir() if (p / "case.json").is_file())
+
+
+def test_the_catalogue_has_at_least_thirty_cases():
+    assert len(CASES) >= 30, CASES
+
+
+def _month(con, landing: Path, period: Period, run_id: str, settings: Settings):
+    """Ingest and validate one month as the flow does, and settle the load as the quality gate does."""
+    ctx = RunContext.create(str(period), settings=settings, run_id=run_id)
+    load_customers(con, ctx, landing / "customers.csv")
+    [manifest] = find_manifests(landing, period)
+    load = load_extract(con, ctx, manifest)
+    if load.status == loads.SKIPPED:
+        return load, None
+    summary = validate_load(con, load.load_id, settings)
+    decision = quality_gate([summary], settings)
+    loads.settle(con, [load.load_id], decision.passed, decision.reason)
+    return load, summary
+
+
+@pytest.mark.parametrize("name", CASES)
+def test_bad_input(name, con, tmp_path):
+    case = json.loads((CATALOGUE / name / "case.json").read_text(encoding="utf-8"))
+    landing = tmp_path / name
+    shutil.copytree(CATALOGUE / name, landing)
+    # The row-level outcome is what is tested here; the share limits (which stop a run whose extract is
+    # mostly bad, as these five-record files are) are tested with the quality gate.
+    settings = Settings(
+        home=tmp_path / "state", quality={"max_quarantine_share": 1, "max_broken_chain_share": 1}
+    )
+    if case["month_before"]:
+        _, before = _month(con, landing, Period(2026, 9), "run-0", settings)
+        assert before.rows_quarantined == 0, before.examples
+    october = Period(2026, 10)
+    extract = "ledger-2026-10.csv"
+
+    if case["outcome"] == "stop":
+        with pytest.raises((ExtractError, GateStopped)) as caught:
+            _month(con, landing, october, "run-1", settings)
+        message = str(caught.value)
+        for part in case["message"]:
+            assert part in message, f"{name}: {part!r} not in {message!r}"
+        # Nothing of a refused file reaches the tables the features read.
+        assert con.execute(
+            "select count(*) from ops.loads where dataset = 'ledger' and period = '2026-10' and status = 'accepted'"
+        ).fetchall() == [(0,)]
+        return
+
+    if case["outcome"] == "skip":
+        first, _ = _month(con, landing, october, "run-1", settings)
+        again, _ = _month(con, landing, october, "run-2", settings)
+        assert (again.status, again.load_id) == (loads.SKIPPED, first.load_id)
+        assert con.execute("select count(*) from raw.ledger_lines").fetchall() == [(5,)]
+        return
+
+    load, summary = _month(con, landing, october, "run-1", settings)
+    rows = con.execute(
+        "select source_line, failed_rules, reason, source_file from quarantine.ledger_lines "
+        "where load_id = ? order by source_line",
+        [load.load_id],
+    ).fetchall()
+    expected = {int(k): sorted(v) for k, v in case.get("quarantined", {}).items()}
+    assert {line: sorted(rules) for line, rules, _, _ in rows} == expected
+    for line, rules, reason, source_file in rows:
+        assert Path(source_file).name == extract  # the file …
+        assert reason.startswith(f"line {line}: ")  # … the line …
+        for rule in rules:
+            assert rule in reason  # … and every rule broken
+    # No record lost: every record read is staged or quarantined.
+    run_sql_file(con, "staging", "transactions")
+    staged = con.execute(
+        "select count(*) from staging.transactions where load_id = ?", [load.load_id]
+    ).fetchall()[0][0]
+    assert load.rows_in_file == staged + summary.rows_quarantined
+    for column, value in case.get("verbatim", {}).items():
+        stored = [r[0] for r in con.execute(f"select {column} from staging.transactions").fetchall()]
+        assert value in stored  # stored exactly as sent
