@@ -5,7 +5,7 @@ BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed-$(shell cat pyproject.toml | sha256sum | cut -c1-16)
 
 .DEFAULT_GOAL := help
-.PHONY: help venv demo test test-all bench lint format clean browser
+.PHONY: help venv demo test test-all test-crash bench lint format clean browser
 
 help: ## list the targets
 	@grep -E '^[a-z-]+:.*## ' $(MAKEFILE_LIST) | awk -F':.*## ' '{printf "  make %-10s %s\n", $$1, $$2}'
@@ -31,6 +31,9 @@ browser: ## install Debian's chromium and chromium-driver for the report's brows
 test: venv ## lint, then run the default test suite (unit, sql, reference, integration; no benchmarks)
 	@$(MAKE) --no-print-directory lint
 	$(BIN)/python -m pytest
+
+test-crash: venv ## kill runs at each stage boundary and rerun them (~8 min; CI runs it after make test)
+	$(BIN)/python -m pytest tests/crash -m crash
 
 bench: venv ## benchmark the monthly flow on a larger synthetic bank (BENCH_CUSTOMERS=20000 by default)
 	$(BIN)/python -m pytest tests/bench -m bench -s -p no:cacheprovider

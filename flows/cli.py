@@ -26,6 +26,11 @@ class DemoFormat(StrEnum):
     parquet = "parquet"
 
 
+class DefectMode(StrEnum):
+    quarantine = "quarantine"
+    stop = "stop"
+
+
 app = typer.Typer(
     add_completion=False,
     no_args_is_help=True,
@@ -174,6 +179,15 @@ def demo(
     file_format: Annotated[
         DemoFormat | None, typer.Option("--format", case_sensitive=False, help="File format of the extracts.")
     ] = None,
+    inject_defects: Annotated[
+        DefectMode | None,
+        typer.Option(
+            "--inject-defects",
+            case_sensitive=False,
+            help="Damage the last extract: 'quarantine' (a few bad records, the run publishes and the report "
+            "lists them) or 'stop' (too many, the quality gate stops the run).",
+        ),
+    ] = None,
 ) -> None:
     """Generate demo extracts for a fictional institution and run the monthly flow on them."""
     s = _settings()
@@ -189,6 +203,7 @@ def demo(
         months=months,
         end_period=end_period,
         file_format=file_format.value if file_format else None,
+        inject_defects=inject_defects.value if inject_defects else None,
     )
     files, run_result, t = result
     out.print(
@@ -305,7 +320,7 @@ def restate(
 
     def begin() -> str:
         with open_warehouse(s.warehouse_path) as con:  # a held warehouse is a clear error too
-            return restatement.begin(con, p, landing, reason)
+            return restatement.begin(con, p, landing, reason, s.quality.expected_sources)
 
     request = _run_guarded(begin)
     from ledgerband.flows.monthly import monthly_run
@@ -464,8 +479,16 @@ def status(limit: Annotated[int, typer.Option(help="How many recent runs to show
                 highlight=False,
             )
     out.print(f"Recent runs in {s.warehouse_path}:")
-    colour = {"published": "green", "withheld": "yellow", "stopped": "red", "failed": "red"}
+    colour = {"published": "green", "withheld": "yellow", "stopped": "red", "failed": "red", "crashed": "red"}
+    from ledgerband.tasks.runlock import lock_is_free
+
+    nobody_running = lock_is_free(s.home)
     for run_id, period, started, st, error, stages, gates in rows:
+        if st == "running" and nobody_running:  # no process holds the run lock: this one died mid-way
+            st = "crashed"
+            error = (
+                error or "its process ended without finishing the run (the next run records it as crashed)"
+            )
         summary = _stage_summary(json.loads(stages or "[]"))
         out.print(
             f"{str(started)[:19]}  {period}  [{colour.get(st, 'white')}]{st:<9}[/]  {summary:<32}  run {run_id}",

@@ -9,6 +9,7 @@ from prefect.cache_policies import NO_CACHE
 
 from ledgerband.flows.monthly import RunResult, monthly_run
 from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.demo.defects import inject
 from ledgerband.tasks.demo.generator import DemoFiles, generate
 from ledgerband.tasks.demo.truth import label_agreement, truth_check
 from ledgerband.tasks.report import report_task
@@ -30,6 +31,12 @@ def generate_task(customers: int, months: int, end_period: str, seed: int, file_
         institution=s.demo.institution,
         holidays=s.payroll.holidays,
     )
+
+
+@task(name="inject-demo-defects", cache_policy=NO_CACHE)
+def inject_defects_task(files: DemoFiles, mode: str) -> list[str]:
+    """Damage the last extract (demo only) so the quality gate can be seen quarantining or stopping."""
+    return inject(files, mode, seed=get_settings().demo.seed)
 
 
 @task(name="demo-truth-check", cache_policy=NO_CACHE)
@@ -54,6 +61,7 @@ def demo_run(
     end_period: str | None = None,
     seed: int | None = None,
     file_format: str | None = None,
+    inject_defects: str | None = None,
 ) -> tuple[DemoFiles, RunResult, dict]:
     """Generate the demo bank's extracts, run the month, and check the estimates against the truth."""
     d = get_settings().demo
@@ -64,6 +72,9 @@ def demo_run(
         d.seed if seed is None else seed,
         file_format or d.file_format,
     )
+    if inject_defects:
+        for line in inject_defects_task(files, inject_defects):
+            print(f"injected defect: {line}")
     result = monthly_run(files.periods[-1], files.landing_dir)
     truth = truth_check_task(result.run_id)
     # The report again, now with the truth check beside the cross-validated figures.

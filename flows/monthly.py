@@ -14,6 +14,7 @@ from ledgerband.tasks.alerts import alert_owners_hook
 from ledgerband.tasks.artifacts import run_artifacts
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import GateStopped
+from ledgerband.tasks.faults import checkpoint
 from ledgerband.tasks.features import FeatureBuild, build_features_task
 from ledgerband.tasks.gates import Decision
 from ledgerband.tasks.gates.accuracy import accuracy_gate_task
@@ -31,6 +32,7 @@ from ledgerband.tasks.schedule import period_for_scheduled
 from ledgerband.tasks.settings import get_settings
 from ledgerband.tasks.train import TrainSummary, train_task
 from ledgerband.tasks.validate import validate_features_task, validate_load_task
+from ledgerband.tasks.validation_docs import keep_task as keep_validation_results_task
 
 
 @dataclass(frozen=True)
@@ -54,8 +56,10 @@ def ingest(ctx: RunContext) -> list[LoadResult]:
 
 
 def validate(ctx: RunContext, loaded: list[LoadResult]) -> Decision:
-    """The suite on each new extract, then the quarantine-share check of the quality gate."""
-    return quality_gate_task(ctx, [validate_load_task(ctx, load) for load in loaded if load.is_new_extract])
+    """The suite on each new extract, its results kept (JSON and a page), then the quality gate."""
+    summaries = [validate_load_task(ctx, load) for load in loaded if load.is_new_extract]
+    keep_validation_results_task(ctx, summaries)
+    return quality_gate_task(ctx, summaries)
 
 
 def features(ctx: RunContext) -> FeatureBuild:
@@ -100,12 +104,14 @@ def _run(ctx: RunContext) -> RunResult:
     log = RunLog(ctx)
     try:
         loaded = log.run("ingest", ingest, ctx, detail=lambda r: {x.source_file: x.status for x in r})
+        checkpoint("after_load")
         quality = log.run("validate", validate, ctx, loaded, detail=lambda d: d.reason)
         log.run("features", features, ctx, detail=lambda b: b.row_counts)
         log.run("label_gate", label_gate_task, ctx, detail=lambda d: d.reason)
         train = log.run(
             "train", train_task, ctx, detail=lambda t: {"champion": t.champion, "n_labelled": t.n_labelled}
         )
+        checkpoint("after_train")
         accuracy = log.run("accuracy_gate", accuracy_gate_task, ctx, train, detail=lambda d: d.reason)
         log.run("drift_gate", drift_gate_task, ctx, detail=lambda d: d.reason)
         published = log.run("publish", publish_task, ctx, train, detail=lambda p: p.__dict__)
@@ -131,6 +137,7 @@ def _run(ctx: RunContext) -> RunResult:
     except Exception as exc:
         log.finish(PUBLISHED, f"published, but {log.stages[-1]['stage']} failed: {type(exc).__name__}: {exc}")
         raise
+    checkpoint("after_swap")
     log.finish(PUBLISHED)
     _artifacts(ctx, PUBLISHED, report)
     return RunResult(

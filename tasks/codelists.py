@@ -5,8 +5,10 @@
 - bank transaction codes (Domain, Family, SubFamily) and purpose codes: the ISO 20022 external code
   sets, shipped as data files in `expectations/codes/` with their version and source.
 
-The lists reach the suite as expectation parameters (`$PARAMETER`), so the suite stays the one place a
-rule is declared and the lists stay data that can be replaced when a new publication comes out.
+Validation joins the lists in DuckDB into derived boolean columns (`merchant_category_listed`, …) that
+the suite's rules check; each rule names its list in `meta.code_list`. (GX copies an expectation's
+value set every time it reads its configuration: a thousand-code list in the suite cost more than every
+other rule together.) The lists stay data that can be replaced when a new publication comes out.
 """
 
 from __future__ import annotations
@@ -108,8 +110,21 @@ def _version(dist: str) -> str:
     return version(dist)
 
 
+def as_table():
+    """Every list as one Arrow table (list, code), joined by validation into the derived *_listed columns."""
+    import pyarrow as pa
+
+    lists = suite_parameters()
+    return pa.table(
+        {
+            "list": [name for name, codes in lists.items() for _ in codes],
+            "code": [code for codes in lists.values() for code in codes],
+        }
+    )
+
+
 def suite_parameters() -> dict[str, list[str]]:
-    """The `$PARAMETER` values the ledger suite's code-list rules read."""
+    """Each code list by the name the suite's rules give it (meta.code_list)."""
     btc = bank_transaction_codes()
     return {
         "merchant_categories": list(merchant_categories().codes),

@@ -19,6 +19,7 @@ from prefect.cache_policies import NO_CACHE
 from ledgerband.tasks import loads
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import ExtractError
+from ledgerband.tasks.faults import checkpoint
 from ledgerband.tasks.gates import enforce
 from ledgerband.tasks.gates.manifest import FileCounts, reconcile
 from ledgerband.tasks.landing.contract import CUSTOMER_COLUMNS, LEDGER_COLUMNS, sha256_file
@@ -70,6 +71,22 @@ def _check_customer_header(path: Path, header: list[str]) -> None:
         )
 
 
+def _check_size(path: Path, manifest: Manifest, max_field_length: int) -> None:
+    """Refuse a file far larger than its manifest allows before reading it (it would only be read to fail).
+
+    The most a record can take: every field at the longest allowed text, 4 bytes a character (UTF-8),
+    quoted, plus separators; anything larger than row_count such records (and a header) is not this extract.
+    """
+    most_per_record = len(LEDGER_COLUMNS) * (4 * max_field_length + 3) + 2
+    limit = (manifest.row_count + 1) * most_per_record + 64 * 1024
+    size = path.stat().st_size
+    if size > limit:
+        raise ExtractError(
+            f"{path}: {size:,} bytes, more than {manifest.row_count:,} records can take ({limit:,} bytes at most, "
+            f"manifest {manifest.path.name}); refused before reading it"
+        )
+
+
 def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Manifest) -> loads.LoadResult:
     """Load one ledger extract into raw.ledger_lines and reconcile it with its manifest.
 
@@ -78,6 +95,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
         GateStopped: the header breaks the contract, or row count or totals disagree with the manifest.
     """
     path = manifest.extract_path
+    _check_size(path, manifest, ctx.settings.quality.max_field_length)
     sha = sha256_file(path)
     if sha != manifest.sha256:
         raise ExtractError(
@@ -115,6 +133,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
     with transaction(con):
         loads.forget_unaccepted(con, sha, loads.LEDGER)
         _insert_records(con, "raw.ledger_lines", records, LEDGER_COLUMNS, load_id, path)
+        checkpoint("mid_load")
         for line, text, reason, rule in records.malformed:
             con.execute(
                 "insert into quarantine.ledger_lines values (?, ?, ?, [?], ?, ?, ?)",
@@ -203,7 +222,9 @@ def find_extracts_task(ctx: RunContext) -> list[Path]:
     once its month is accepted)."""
     with open_warehouse(ctx.warehouse) as con:
         accepted = loads.accepted_periods(con)
-    return manifests_to_load(ctx.landing_dir, ctx.load_window, accepted)
+    return manifests_to_load(
+        ctx.landing_dir, ctx.load_window, accepted, ctx.settings.quality.expected_sources
+    )
 
 
 @task(name="ingest-extract", task_run_name="ingest-{manifest_path.name}", cache_policy=NO_CACHE, **IO_RETRIES)

@@ -23,6 +23,7 @@ from ledgerband.tasks.bands import write_band_table
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.contract import apply_comments
 from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.faults import checkpoint
 from ledgerband.tasks.retry import IO_RETRIES
 from ledgerband.tasks.train import TrainSummary
 from ledgerband.tasks.warehouse import open_warehouse, scalar, sql_model, transaction
@@ -129,6 +130,7 @@ def export_reader_copy(con: duckdb.DuckDBPyConnection, target: Path) -> Path:
         apply_comments(con, "reader_copy")
     finally:
         con.execute("detach reader_copy")
+    checkpoint("mid_publish")
     os.replace(tmp, target)
     return target
 

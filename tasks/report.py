@@ -130,6 +130,7 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
         "stopped_at": stopped_at,
         "quarantine": quarantine,
         "loads": loads,
+        "validation_page": _validation_page(ctx),
         "models": models,
         "groups": groups,
         "shift": shift,
@@ -159,6 +160,14 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
         },
         "published_path": str(settings.published_path),
     }
+
+
+def _validation_page(ctx: RunContext) -> str | None:
+    """The run's validation results page, relative to the report (they share a folder), if it was written."""
+    from ledgerband.tasks.validation_docs import paths
+
+    _, page = paths(ctx.settings.reports_dir, str(ctx.period), ctx.run_id)
+    return page.name if page.is_file() else None
 
 
 def render(context: dict) -> str:

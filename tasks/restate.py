@@ -11,6 +11,7 @@ without data. Later months' features are rebuilt by their own next run (or a bac
 from __future__ import annotations
 
 import uuid
+from collections.abc import Sequence
 from datetime import datetime
 from pathlib import Path
 
@@ -24,7 +25,13 @@ from ledgerband.tasks.period import Period
 from ledgerband.tasks.warehouse import apply_schema, transaction
 
 
-def begin(con: duckdb.DuckDBPyConnection, period: Period, landing: Path, reason: str) -> str:
+def begin(
+    con: duckdb.DuckDBPyConnection,
+    period: Period,
+    landing: Path,
+    reason: str,
+    expected_sources: Sequence[str] = (),
+) -> str:
     """Mark the period's accepted loads as restated and record the request; returns its id."""
     apply_schema(con)
     accepted = con.execute(
@@ -33,7 +40,7 @@ def begin(con: duckdb.DuckDBPyConnection, period: Period, landing: Path, reason:
     ).fetchall()
     if not accepted:
         raise LedgerbandError(f"{period} has no accepted extract to restate; run the month instead")
-    manifests = find_manifests(landing, period)
+    manifests = find_manifests(landing, period, expected_sources)
     if not manifests:
         raise LedgerbandError(
             f"no corrected extract for {period} in {landing / str(period)} (manifest and file)"

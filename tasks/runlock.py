@@ -76,3 +76,20 @@ def run_lock(home: Path, period: str) -> Iterator[dict]:
             fcntl.flock(fd, fcntl.LOCK_UN)
     finally:
         os.close(fd)
+
+
+def lock_is_free(home: Path) -> bool:
+    """True when no process holds the state folder's run lock (tried without waiting, released at once)."""
+    path = home / LOCK_NAME
+    if not path.exists():
+        return True
+    fd = os.open(path, os.O_RDWR)
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except BlockingIOError:
+        return False
+    else:
+        fcntl.flock(fd, fcntl.LOCK_UN)
+        return True
+    finally:
+        os.close(fd)

@@ -26,6 +26,7 @@ T = TypeVar("T")
 RUNNING = "running"
 PUBLISHED = "published"
 FAILED = "failed"
+CRASHED = "crashed"  # its process ended without finishing the run (killed, machine restarted)
 # and GateStopped.run_status: 'withheld' (accuracy) or 'stopped' (quality)
 
 
@@ -59,7 +60,7 @@ class RunLog:
     error: str | None = None
 
     def __post_init__(self) -> None:
-        self._write(create_schema=True)
+        self._write(create_schema=True, mark_crashed=True)
 
     @contextmanager
     def stage(self, name: str) -> Iterator[dict]:
@@ -95,10 +96,12 @@ class RunLog:
         self.status, self.error = status, error
         self._write(finished=True)
 
-    def _write(self, create_schema: bool = False, finished: bool = False) -> None:
+    def _write(self, create_schema: bool = False, finished: bool = False, mark_crashed: bool = False) -> None:
         with open_warehouse(self.ctx.warehouse) as con:
             if create_schema:
                 apply_schema(con)
+            if mark_crashed:
+                mark_crashed_runs(con, self.ctx.run_id)
             gates = decisions_of_run(con, self.ctx.run_id)
             con.execute("delete from ops.runs where run_id = ?", [self.ctx.run_id])
             con.execute(
@@ -114,3 +117,26 @@ class RunLog:
                     json.dumps(gates, default=str),
                 ],
             )
+
+
+def mark_crashed_runs(con, current_run_id: str) -> int:
+    """Mark every other run still 'running' as crashed; returns how many.
+
+    Called by a run that holds the run lock: only one run holds it, so any other row still 'running'
+    belongs to a process that ended without finishing (SIGKILL, power loss, OOM killer).
+    """
+    now = datetime.now()
+    rows = con.execute(
+        "update ops.runs set status = ?, finished_at = ?, "
+        "error = coalesce(error || '; ', '') || ? "
+        "where status = ? and run_id <> ? returning run_id",
+        [
+            CRASHED,
+            now,
+            f"its process ended without finishing the run (killed or crashed); found by run {current_run_id} "
+            f"at {now:%Y-%m-%d %H:%M:%S}",
+            RUNNING,
+            current_run_id,
+        ],
+    ).fetchall()
+    return len(rows)

@@ -60,6 +60,10 @@ class QualitySettings(_Section):
     are quarantined) before the run stops: many breaks mean a damaged extract, not a few bad accounts."""
     max_field_length: int = Field(128, ge=8)
     """Longest text a ledger field may hold; a longer one quarantines its record (rule text_field_too_long)."""
+    expected_sources: list[str] = []
+    """Source systems that each send one extract a month (manifest field `source`). When set, a month is
+    complete only when every listed source's manifest and file have arrived; empty: any number of
+    extracts, each with its manifest."""
     chunk_rows: int = Field(250_000, gt=0)
     """Rows per chunk handed to the row-level expectation suite (bounds memory on large extracts)."""
 

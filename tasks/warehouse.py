@@ -25,6 +25,7 @@ from typing import Any
 import duckdb
 
 from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.faults import checkpoint
 
 PACKAGE = "ledgerband.warehouse"
 # Layers built from SQL files by the feature stage, lowest first (published files are run by publish).
@@ -167,6 +168,8 @@ def build_layers(con: duckdb.DuckDBPyConnection, params: Mapping[str, Any]) -> d
     """Rebuild every table of the built layers in dependency order; returns row counts per table."""
     counts = {}
     for model in layer_models():
+        if model.layer == "intermediate":
+            checkpoint("mid_features")
         model.build(con, params)
         if model.materialized == "table":
             counts[model.relation] = int(scalar(con, f"select count(*)::bigint from {model.relation}"))

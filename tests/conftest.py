@@ -29,6 +29,46 @@ configure_process_env()  # the test session is an entry point, like the CLI
 FIXTURES = Path(__file__).parent / "fixtures"
 
 
+def _guard_sockets() -> None:
+    """No test reaches past this machine: an IP connection anywhere but the loopback fails loudly.
+
+    Every service a test needs (Prefect API, SMTP, HTTP sinks) listens on 127.0.0.1; a library that tried
+    to phone home (analytics, update checks, a hub download) would fail the test that caused it. Unix
+    sockets are untouched. Subprocesses a test starts are not covered (they run our own CLI, offline).
+    """
+    import ipaddress
+    import socket
+
+    real_connect, real_connect_ex = socket.socket.connect, socket.socket.connect_ex
+
+    def _check(sock: socket.socket, address) -> None:
+        if sock.family not in (socket.AF_INET, socket.AF_INET6):
+            return
+        host = address[0]
+        try:
+            loopback = host == "localhost" or ipaddress.ip_address(host).is_loopback
+        except ValueError:
+            loopback = False
+        if not loopback:
+            raise ConnectionRefusedError(
+                f"test socket guard: a connection to {address!r} was attempted; tests stay on 127.0.0.1"
+            )
+
+    def connect(self, address):
+        _check(self, address)
+        return real_connect(self, address)
+
+    def connect_ex(self, address):
+        _check(self, address)
+        return real_connect_ex(self, address)
+
+    socket.socket.connect = connect
+    socket.socket.connect_ex = connect_ex
+
+
+_guard_sockets()
+
+
 @pytest.fixture
 def settings(tmp_path: Path) -> Settings:
     """Default settings with the state folder in this test's tmp_path."""

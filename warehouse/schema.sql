@@ -303,7 +303,7 @@ create table if not exists ops.runs (
     period varchar not null,
     started_at timestamp not null,
     finished_at timestamp,
-    status varchar not null,               -- running | published | withheld | stopped | failed
+    status varchar not null,               -- running | published | withheld | stopped | failed | crashed
     error varchar,
     stages json,                           -- [{stage, status, seconds, detail}]
     gate_figures json

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import json
 import re
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from decimal import Decimal, InvalidOperation
 from pathlib import Path
@@ -13,6 +13,9 @@ from ledgerband.tasks.errors import ExtractError, LedgerbandError
 from ledgerband.tasks.period import Period
 
 MANIFEST_FIELDS = ("period", "institution", "file", "sha256", "row_count", "credit_total", "debit_total")
+# Optional: the source system that sent the extract, when a period arrives as several files (one per
+# source system); settings quality.expected_sources then lists the sources a complete period has.
+SOURCE_FIELD = "source"
 _DECIMAL_TEXT = re.compile(r"^-?\d+(\.\d+)?$")
 
 
@@ -26,6 +29,7 @@ class Manifest:
     row_count: int
     credit_total: Decimal
     debit_total: Decimal
+    source: str | None = None
 
     @property
     def extract_path(self) -> Path:
@@ -77,11 +81,26 @@ def read_manifest(path: Path) -> Manifest:
         row_count=data["row_count"],
         credit_total=totals["credit_total"],
         debit_total=totals["debit_total"],
+        source=_source(path, data.get(SOURCE_FIELD)),
     )
 
 
-def find_manifests(landing_dir: Path, period: Period) -> list[Manifest]:
-    """The manifests in `<landing_dir>/<period>/`, each checked to belong to that period."""
+def _source(path: Path, value: object) -> str | None:
+    if value is None:
+        return None
+    if not isinstance(value, str) or not re.fullmatch(r"[A-Za-z0-9_.-]{1,64}", value):
+        raise ExtractError(
+            f"manifest {path}: source must be a short name (letters, digits, _ . -), got {value!r}"
+        )
+    return value
+
+
+def find_manifests(landing_dir: Path, period: Period, expected_sources: Sequence[str] = ()) -> list[Manifest]:
+    """The manifests in `<landing_dir>/<period>/`, each checked to belong to that period.
+
+    With `expected_sources`, the period is complete only when each listed source system has exactly one
+    manifest (field `source`) and its file has arrived; a manifest from an unlisted source is refused.
+    """
     folder = Path(landing_dir) / str(period)
     if not folder.is_dir():
         raise ExtractError(f"no landing folder for period {period}: expected {folder}")
@@ -97,11 +116,51 @@ def find_manifests(landing_dir: Path, period: Period) -> list[Manifest]:
             )
         if not m.extract_path.is_file():
             raise ExtractError(f"manifest {m.path}: names file {m.file}, which is not in {folder}")
+        _confined(Path(landing_dir), m.path)
+        _confined(Path(landing_dir), m.extract_path)
+    if expected_sources:
+        _check_sources(folder, manifests, list(expected_sources))
     return manifests
 
 
+def _confined(landing_dir: Path, path: Path) -> None:
+    """A file is read only if it really lies in the landing folder (a symlink out of it is refused)."""
+    root = landing_dir.resolve()
+    if not path.resolve().is_relative_to(root):
+        raise ExtractError(
+            f"{path}: resolves to {path.resolve()}, outside the landing folder {root}; "
+            "files are read only from the landing folder (is it a symbolic link?)"
+        )
+
+
+def _check_sources(folder: Path, manifests: list[Manifest], expected: list[str]) -> None:
+    for m in manifests:
+        if m.source not in expected:
+            raise ExtractError(
+                f"manifest {m.path}: source {m.source!r} is not one of quality.expected_sources {expected} "
+                "(each extract's manifest names its source system)"
+            )
+    seen: dict[str, list[str]] = {}
+    for m in manifests:
+        seen.setdefault(str(m.source), []).append(m.path.name)
+    twice = {src: names for src, names in seen.items() if len(names) > 1}
+    if twice:
+        raise ExtractError(
+            f"{folder}: more than one manifest for source(s) {twice}; one extract per source and month"
+        )
+    missing = [src for src in expected if src not in seen]
+    if missing:
+        raise ExtractError(
+            f"{folder}: period incomplete, no extract yet from source(s) {missing} "
+            f"(quality.expected_sources {expected}; arrived: {sorted(seen)})"
+        )
+
+
 def manifests_to_load(
-    landing_dir: Path, periods: Iterable[Period], accepted_periods: set[Period]
+    landing_dir: Path,
+    periods: Iterable[Period],
+    accepted_periods: set[Period],
+    expected_sources: Sequence[str] = (),
 ) -> list[Path]:
     """Manifests of every period in `periods` that has a landing folder.
 
@@ -112,5 +171,5 @@ def manifests_to_load(
     for period in periods:
         if not (Path(landing_dir) / str(period)).is_dir() and period in accepted_periods:
             continue
-        paths.extend(m.path for m in find_manifests(landing_dir, period))
+        paths.extend(m.path for m in find_manifests(landing_dir, period, expected_sources))
     return paths

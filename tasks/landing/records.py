@@ -110,18 +110,33 @@ def _as_text(table: pa.Table, header: list[str]) -> tuple[pa.Table, list[tuple[i
     return table.filter(keep).cast(text_schema), found
 
 
+# A header longer than this, or with more columns, is refused before anything is parsed (a file of
+# 100k columns, or of no line breaks at all, must not exhaust memory). Generous: our contract has 13.
+MAX_HEADER_BYTES = 64 * 1024
+MAX_COLUMNS = 256
+
+
 def _csv_header(path: Path) -> list[str]:
     """Column names exactly as written (a byte-order mark is allowed; spaces are kept, so they show)."""
     try:
         # Only line 1 is decoded here (a text-mode reader would decode ahead into the records, whose bytes
-        # are checked record by record).
+        # are checked record by record), and at most MAX_HEADER_BYTES of it.
         with path.open("rb") as f:
-            first = f.readline().decode("utf-8-sig")
+            raw = f.readline(MAX_HEADER_BYTES + 1)
+        if len(raw) > MAX_HEADER_BYTES:
+            raise ExtractError(
+                f"{path}: line 1 (header) is longer than {MAX_HEADER_BYTES} bytes; refused before reading further"
+            )
+        first = raw.decode("utf-8-sig")
         header = next(csv.reader([first.rstrip("\r\n")]), [])
     except UnicodeDecodeError as exc:
         raise ExtractError(f"{path}: line 1 (header) is not UTF-8 ({exc})") from exc
     if not header or header == [""]:
         raise ExtractError(f"{path}: empty file, expected a header row on line 1")
+    if len(header) > MAX_COLUMNS:
+        raise ExtractError(
+            f"{path}: line 1 (header) has {len(header)} columns, more than {MAX_COLUMNS}; refused before reading further"
+        )
     dupes = sorted({h for h in header if header.count(h) > 1})
     if dupes:
         raise ExtractError(f"{path}: line 1 (header) repeats column(s) {', '.join(dupes)}")

@@ -158,6 +158,18 @@ def test_rows_in_equal_rows_staged_plus_quarantined(home, first_run, demo):
     ]
 
 
+def test_the_report_links_the_runs_validation_results(first_run):
+    html = first_run.report.read_text()
+    page = first_run.report.with_name(f"{first_run.run_id}.validation.html")
+    assert f'href="{page.name}"' in html and page.is_file()
+    results = json.loads(page.with_name(f"{first_run.run_id}.validation.json").read_text())
+    assert [x["source_file"].split("/")[-1] for x in results["extracts"]] == [
+        f"ledger-{m}.csv" for m in ("2026-07", "2026-08", "2026-09", "2026-10")
+    ]
+    last = {r["expectation_config"]["meta"]["rule"]: r for r in results["extracts"][-1]["results"]}
+    assert last["amount_format"]["result"]["unexpected_count"] == 1  # the spoiled record
+
+
 def test_readers_open_the_published_copy_while_the_warehouse_is_held(home, first_run):
     writer = duckdb.connect(str(home / "warehouse.duckdb"))  # a run in progress holds the file
     try:

@@ -69,3 +69,39 @@ def test_the_lock_is_exclusive_within_one_machine(tmp_path):
     assert refused.value.exit_code == 4
     with run_lock(tmp_path, "2026-10"):  # free again once the block ends
         pass
+
+
+def test_a_run_left_running_by_a_dead_process_is_marked_crashed(tmp_path, monkeypatch):
+    # Only the lock holder runs; any other 'running' row belongs to a process that is gone. `status`
+    # shows it as crashed at once (nobody holds the lock); the next run records it so.
+    import duckdb
+    from typer.testing import CliRunner
+
+    from ledgerband.flows.cli import app
+    from ledgerband.tasks.context import RunContext
+    from ledgerband.tasks.runlock import run_lock
+    from ledgerband.tasks.runlog import RunLog
+    from ledgerband.tasks.settings import Settings, get_settings
+
+    monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path))
+    get_settings.cache_clear()
+    settings = Settings(home=tmp_path)
+    killed = RunLog(RunContext.create("2026-09", settings=settings, run_id="killed-run"))
+    killed.stages.append({"stage": "ingest", "status": "running", "seconds": None, "detail": None})
+    killed._write()  # what a process killed mid-ingest leaves: a row saying 'running'
+
+    shown = CliRunner().invoke(app, ["status"])
+    assert "crashed" in shown.output and "killed-run" in shown.output, shown.output
+    with run_lock(tmp_path, "2026-09"):  # while a run holds the folder, 'running' may be true
+        assert "crashed" not in CliRunner().invoke(app, ["status"]).output
+
+    with run_lock(tmp_path, "2026-10"):
+        RunLog(RunContext.create("2026-10", settings=settings, run_id="next-run"))
+    con = duckdb.connect(str(settings.warehouse_path), read_only=True)
+    rows = dict(con.execute("select run_id, status from ops.runs").fetchall())
+    error = con.execute(
+        "select error, finished_at is not null from ops.runs where run_id = 'killed-run'"
+    ).fetchall()
+    con.close()
+    assert rows == {"killed-run": "crashed", "next-run": "running"}
+    assert "found by run next-run" in error[0][0] and error[0][1]

@@ -1,0 +1,158 @@
+"""A run killed at any stage boundary loses nothing, and the rerun gives the clean run's answer.
+
+Each test runs `ledgerband run` in a subprocess that ends itself abruptly (`os._exit`, as SIGKILL would:
+no cleanup runs) at one named point (tasks/faults.py), then runs the month again and compares with a run
+that was never interrupted. Marked `crash` (about 8 minutes): `make test-crash`; CI runs it after the
+default suite. The runs use the CLI's own temporary Prefect server, so the test also sees what a killed
+run leaves behind.
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import duckdb
+import pytest
+
+from ledgerband.tasks.faults import FAULT_ENV, FAULT_EXIT_CODE, POINTS
+from ledgerband.tasks.publish import READER_TABLES
+from ledgerband.tasks.runtime import orphaned_servers
+from ledgerband.tasks.settings import Settings
+
+pytestmark = pytest.mark.crash
+
+PERIOD = "2026-10"
+# A small bank and a quick model comparison: what is under test is crash safety, not accuracy.
+CONFIG = """
+[accuracy]
+min_labelled_customers = 50
+min_mae_skill = 0.0
+min_band_skill = 0.0
+coverage_tolerance = 0.5
+[train]
+candidates = ["linear_regression", "ridge"]
+cv_folds = 3
+cv_repeats = 1
+"""
+VOLATILE = ("run_id", "snapshot_id")
+
+
+@pytest.fixture(scope="module")
+def landing(tmp_path_factory):
+    from ledgerband.tasks.demo.generator import generate
+
+    root = tmp_path_factory.mktemp("crash-landing")
+    files = generate(root / "landing", root / "answers.parquet", customers=600, months=4, seed=5)
+    (root / "ledgerband.toml").write_text(CONFIG)
+    return files.landing_dir
+
+
+def _run(home: Path, landing: Path, fault: str | None = None) -> subprocess.CompletedProcess:
+    env = {k: v for k, v in os.environ.items() if not k.startswith(("PREFECT_API_URL", FAULT_ENV))}
+    env.update(
+        LEDGERBAND_HOME=str(home),
+        LEDGERBAND_CONFIG=str(landing.parent / "ledgerband.toml"),
+        PREFECT_HOME=str(home / "prefect"),
+    )
+    if fault:
+        env[FAULT_ENV] = fault
+    command = [
+        sys.executable,
+        "-m",
+        "ledgerband.flows.cli",
+        "run",
+        "--period",
+        PERIOD,
+        "--landing",
+        str(landing),
+    ]
+    return subprocess.run(command, env=env, capture_output=True, text=True, timeout=600)
+
+
+def _tables(home: Path) -> dict[str, list[tuple]]:
+    """The readers' copy, every table, without the columns that name the run that wrote it."""
+    path = Settings(home=home).published_path
+    con = duckdb.connect(str(path), read_only=True)
+    try:
+        out = {}
+        for name in READER_TABLES:
+            columns = [
+                c
+                for (c,) in con.execute(
+                    "select column_name from information_schema.columns where table_name = ? order by ordinal_position",
+                    [name],
+                ).fetchall()
+                if c not in VOLATILE and not c.endswith("_at")
+            ]
+            if name in ("decisions", "snapshots"):
+                continue  # one row per run by design: a crashed run's decisions are its record
+            listed = ", ".join(f'"{c}"' for c in columns)
+            out[name] = con.execute(f"select {listed} from {name} order by all").fetchall()
+        return out
+    finally:
+        con.close()
+
+
+def _warehouse_figures(home: Path) -> tuple:
+    con = duckdb.connect(str(Settings(home=home).warehouse_path), read_only=True)
+    try:
+        return con.execute(
+            "select count(*), sum(amount), count(distinct load_id) from staging.transactions"
+        ).fetchall()[0]
+    finally:
+        con.close()
+
+
+@pytest.fixture(scope="module")
+def clean(tmp_path_factory, landing):
+    home = tmp_path_factory.mktemp("crash-clean")
+    result = _run(home, landing)
+    assert result.returncode == 0, result.stdout + result.stderr
+    return _tables(home), _warehouse_figures(home)
+
+
+def _alive(pids: list[int]) -> list[int]:
+    """Processes still running (a zombie waiting for init to reap it has ended)."""
+    alive = []
+    for pid in pids:
+        try:
+            state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+        except OSError:
+            continue
+        if state != "Z":
+            alive.append(pid)
+    return alive
+
+
+@pytest.mark.parametrize("point", list(POINTS))
+def test_a_run_killed_here_is_rerun_to_the_clean_answer(point, tmp_path, landing, clean):
+    home = tmp_path / "home"
+    crashed = _run(home, landing, fault=point)
+    assert crashed.returncode == FAULT_EXIT_CODE, crashed.stdout + crashed.stderr
+
+    # The readers' copy is never partial: absent (nothing published yet) or a whole earlier copy.
+    reader = Settings(home=home).published_path
+    if reader.exists():
+        _tables(home)
+
+    # The killed run's temporary Prefect server is found as an orphan; the next run ends it.
+    orphans = orphaned_servers(home / "prefect")
+    rerun = _run(home, landing)
+    assert rerun.returncode == 0, rerun.stdout + rerun.stderr
+    time.sleep(0.5)
+    assert _alive(orphans) == []
+    assert orphaned_servers(home / "prefect") == []
+
+    tables, figures = clean
+    assert _warehouse_figures(home) == figures  # same rows and amounts staged: nothing lost or doubled
+    assert _tables(home) == tables  # the published tables equal a clean run's
+    con = duckdb.connect(str(Settings(home=home).warehouse_path), read_only=True)
+    try:
+        statuses = [s for (s,) in con.execute("select status from ops.runs order by started_at").fetchall()]
+    finally:
+        con.close()
+    assert statuses == ["crashed", "published"]
