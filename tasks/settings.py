@@ -399,7 +399,9 @@ class Settings(BaseSettings):
 class _FilteredEnv(PydanticBaseSettingsSource):
     """Environment source that refuses misspelt `LEDGERBAND_*` variables instead of ignoring them."""
 
-    _locators = {"config"}  # LEDGERBAND_CONFIG says where the TOML file is; it is not a settings key
+    # LEDGERBAND_CONFIG says where the TOML file is; LEDGERBAND_FAULT_AT is the crash tests' fault point
+    # (tasks/faults.py). Neither is a settings key.
+    _locators = {"config", "fault_at"}
 
     def __init__(self, settings_cls: type[BaseSettings]):
         from pydantic_settings import EnvSettingsSource
