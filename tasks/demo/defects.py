@@ -15,15 +15,14 @@ so the damage reaches the row rules rather than stopping at reconciliation.
 
 from __future__ import annotations
 
-import hashlib
 import json
-from decimal import Decimal, InvalidOperation
 from pathlib import Path
 
 import numpy as np
 
 from ledgerband.tasks.demo.generator import DemoFiles
 from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.landing.manifest import sender_figures
 
 MODES = ("quarantine", "stop")
 
@@ -82,26 +81,12 @@ def inject(files: DemoFiles, mode: str, seed: int = 0) -> list[str]:
 
     text = "\n".join([lines[0], *(",".join(r) for r in rows)]) + "\n"
     extract.write_text(text, encoding="utf-8")
-    _reissue(manifest, extract, header, rows)
+    _reissue(manifest, extract)
     return done
 
 
-def _reissue(manifest: Path, extract: Path, header: list[str], rows: list[list[str]]) -> None:
+def _reissue(manifest: Path, extract: Path) -> None:
     """The manifest the sender would write for these bytes."""
     body = json.loads(manifest.read_text(encoding="utf-8"))
-    totals = {"CRDT": Decimal("0.00"), "DBIT": Decimal("0.00")}
-    amount, direction = header.index("amount"), header.index("direction")
-    for r in rows:
-        try:
-            value = Decimal(r[amount])
-        except InvalidOperation:
-            continue
-        if r[direction] in totals:
-            totals[r[direction]] += value
-    body.update(
-        row_count=len(rows),
-        credit_total=f"{totals['CRDT']:.2f}",
-        debit_total=f"{totals['DBIT']:.2f}",
-        sha256=hashlib.sha256(extract.read_bytes()).hexdigest(),
-    )
+    body.update(sender_figures(extract.read_bytes()))
     manifest.write_text(json.dumps(body, indent=2) + "\n", encoding="utf-8")

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import csv
+import hashlib
+import io
 import json
 import re
 from collections.abc import Iterable, Sequence
@@ -10,6 +13,7 @@ from decimal import Decimal, InvalidOperation
 from pathlib import Path
 
 from ledgerband.tasks.errors import ExtractError, LedgerbandError
+from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
 from ledgerband.tasks.period import Period
 
 MANIFEST_FIELDS = ("period", "institution", "file", "sha256", "row_count", "credit_total", "debit_total")
@@ -34,6 +38,31 @@ class Manifest:
     @property
     def extract_path(self) -> Path:
         return self.path.parent / self.file
+
+
+def sender_figures(data: bytes) -> dict:
+    """The figures a sending system puts in a manifest for these bytes of a CSV extract: sha256, row_count
+    (records after the header) and the credit and debit totals of the amounts that read as decimals.
+
+    For the demo's damaged files and the test fixtures, which must look re-issued by their sender; ingest
+    computes its own figures and never trusts these.
+    """
+    text = data.decode("utf-8-sig", errors="replace")
+    rows = list(csv.reader(io.StringIO(text, newline="")))[1:]
+    amount, direction = LEDGER_COLUMNS.index("amount"), LEDGER_COLUMNS.index("direction")
+    totals = {"CRDT": Decimal("0.00"), "DBIT": Decimal("0.00")}
+    for fields in rows:
+        if len(fields) == len(LEDGER_COLUMNS) and fields[direction] in totals:
+            try:
+                totals[fields[direction]] += Decimal(fields[amount])
+            except InvalidOperation:
+                pass
+    return {
+        "sha256": hashlib.sha256(data).hexdigest(),
+        "row_count": len(rows),
+        "credit_total": f"{totals['CRDT']:.2f}",
+        "debit_total": f"{totals['DBIT']:.2f}",
+    }
 
 
 def read_manifest(path: Path) -> Manifest:

@@ -373,21 +373,15 @@ def test_gx_results_are_kept_per_rule_and_rendered_offline(con, settings, tmp_pa
 
 
 def _source_manifest(folder: Path, file: str, source: str | None, lines: list[str]) -> None:
-    import hashlib
-    from decimal import Decimal
+    from ledgerband.tasks.landing.manifest import sender_figures
 
     path = folder / file
     path.write_text("\n".join(lines) + "\n")
-    credit = sum((Decimal(r.split(",")[4]) for r in lines[1:] if r.split(",")[5] == "CRDT"), Decimal("0.00"))
-    debit = sum((Decimal(r.split(",")[4]) for r in lines[1:] if r.split(",")[5] == "DBIT"), Decimal("0.00"))
     body = {
         "period": "2026-10",
         "institution": "Fixture Savings",
         "file": file,
-        "sha256": hashlib.sha256(path.read_bytes()).hexdigest(),
-        "row_count": len(lines) - 1,
-        "credit_total": f"{credit:.2f}",
-        "debit_total": f"{debit:.2f}",
+        **sender_figures(path.read_bytes()),
     }
     if source:
         body["source"] = source
