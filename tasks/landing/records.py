@@ -131,6 +131,8 @@ def _csv_header(path: Path) -> list[str]:
         header = next(csv.reader([first.rstrip("\r\n")]), [])
     except UnicodeDecodeError as exc:
         raise ExtractError(f"{path}: line 1 (header) is not UTF-8 ({exc})") from exc
+    except csv.Error as exc:  # e.g. a carriage return alone inside the header line
+        raise ExtractError(f"{path}: line 1 (header) cannot be split into column names ({exc})") from exc
     if not header or header == [""]:
         raise ExtractError(f"{path}: empty file, expected a header row on line 1")
     if len(header) > MAX_COLUMNS:

@@ -158,3 +158,11 @@ def test_contract_columns_and_the_suite_header_rule_agree():
 
     [rule] = read_suite("ledger_lines").table
     assert rule["kwargs"]["column_set"] == list(LEDGER_COLUMNS)
+
+
+def test_a_header_with_a_stray_carriage_return_is_refused_by_name(tmp_path):
+    # Found by the loader fuzz test: a lone CR before the header made the csv module raise unhandled.
+    path = tmp_path / "cr.csv"
+    path.write_bytes(b"\rtxn_id,amount\nT1,1.00\n")
+    with pytest.raises(ExtractError, match="cr.csv: line 1 \\(header\\) cannot be split into column names"):
+        read_records(path)
