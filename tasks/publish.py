@@ -79,7 +79,7 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, ctx: RunContext, model_vers
     }
     with transaction(con):
         write_band_table(con, settings.bands.edges, settings.bands.currency)
-        for table in ("income_bands_history", "band_summary_history", "band_movers_history", "snapshots"):
+        for table in (*HISTORY_TABLES, "snapshots"):
             con.execute(f"delete from published.{table} where run_id = ?", [run_id])
         insert_from_file(con, "published.income_bands_history", "income_bands", params)
         insert_from_file(con, "published.band_summary_history", "band_summary", params)
@@ -99,6 +99,7 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, ctx: RunContext, model_vers
                 f"snapshot check failed: {band_rows} band rows, {distinct_customers} distinct customers, "
                 f"{customers} customers in features.customer, {summary_total} in the summary; nothing published"
             )
+        replace_identical_crashed_snapshots(con, run_id, period)
         newest = scalar(con, "select max(period) from published.snapshots where is_current")
         is_current = newest is None or period >= newest  # YYYY-MM sorts as time does
         if is_current:
@@ -116,6 +117,69 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, ctx: RunContext, model_vers
             ],
         )
     return PublishResult(run_id, int(band_rows), published_at.isoformat(timespec="seconds"), is_current)
+
+
+HISTORY_TABLES = ("income_bands_history", "band_summary_history", "band_movers_history")
+# Columns that name the run (or its model) that wrote a row, or when: not part of a snapshot's content.
+RUN_NAMING_COLUMNS = frozenset({"run_id", "model_version", "snapshot_id", "published_at"})
+
+
+def replace_identical_crashed_snapshots(con: duckdb.DuckDBPyConnection, run_id: str, period: str) -> list[str]:
+    """Remove the month's snapshots written by runs that crashed after their publish committed, when the
+    snapshot `run_id` is writing holds the same rows; returns their run ids.
+
+    A run killed after its publish transaction committed left a whole snapshot but never finished (no
+    report, maybe no readers' copy). Its rerun computes the same answer; keeping both would leave the
+    month twice in every history table, which no clean run produces. A crashed run's snapshot that
+    differs (new files arrived, settings changed) is a different answer and stays, as any rerun's does.
+    The crashed run's decisions stay in published.decisions: they are its record. Called inside the
+    publish transaction, after the new snapshot's rows are written.
+    """
+    from ledgerband.tasks.runlog import CRASHED
+
+    crashed = [
+        r
+        for (r,) in con.execute(
+            "select s.run_id from published.snapshots as s inner join ops.runs as r using (run_id) "
+            "where s.period = ? and r.status = ? and s.run_id <> ?",
+            [period, CRASHED, run_id],
+        ).fetchall()
+    ]
+    replaced = [r for r in crashed if _same_snapshot(con, r, run_id)]
+    for old in replaced:
+        for table in (*HISTORY_TABLES, "snapshots"):
+            con.execute(f"delete from published.{table} where run_id = ?", [old])
+        con.execute(
+            "update ops.runs set error = coalesce(error || '; ', '') || ? where run_id = ?",
+            [f"its snapshot, committed before it ended, held the same rows as run {run_id}'s and was replaced by it", old],
+        )
+    return replaced
+
+
+def _same_snapshot(con: duckdb.DuckDBPyConnection, a: str, b: str) -> bool:
+    """Do runs `a` and `b` hold the same rows in every history table (run-naming columns aside)?"""
+    for table in HISTORY_TABLES:
+        # Column names read from the catalogue, never from input.
+        columns = ", ".join(
+            f'"{c}"'
+            for (c,) in con.execute(
+                "select column_name from information_schema.columns "
+                "where table_schema = 'published' and table_name = ? order by ordinal_position",
+                [table],
+            ).fetchall()
+            if c not in RUN_NAMING_COLUMNS
+        )
+        differing = con.execute(
+            f"select count(*) from ("
+            f"(select {columns} from published.{table} where run_id = $a "
+            f"except all select {columns} from published.{table} where run_id = $b) "
+            f"union all (select {columns} from published.{table} where run_id = $b "
+            f"except all select {columns} from published.{table} where run_id = $a))",
+            {"a": a, "b": b},
+        ).fetchall()[0][0]
+        if differing:
+            return False
+    return True
 
 
 def export_reader_copy(con: duckdb.DuckDBPyConnection, target: Path) -> Path:

@@ -38,7 +38,7 @@ candidates = ["linear_regression", "ridge"]
 cv_folds = 3
 cv_repeats = 1
 """
-# Points after the publish transaction commits (see the note in the test).
+# Points after the publish transaction commits: the killed run left a whole snapshot of the month.
 PUBLISHED_BEFORE_THE_CRASH = {"mid_publish", "after_swap"}
 VOLATILE = ("run_id", "snapshot_id", "model_version")  # name the run (or its model) that wrote a row
 
@@ -158,16 +158,16 @@ def test_a_run_killed_here_is_rerun_to_the_clean_answer(point, tmp_path, landing
     tables, figures = dict(clean[0]), clean[1]
     assert _warehouse_figures(home) == figures  # same rows and amounts staged: nothing lost or doubled
     got = _tables(home)
-    if point in PUBLISHED_BEFORE_THE_CRASH:
-        # Known gap (open in the crash-safety issue): the killed run's publish had committed, so the
-        # rerun publishes the month a second time. Current tables equal a clean run's; each history
-        # table holds the month's snapshot twice, row for row (the killed run's and the rerun's).
-        for name in [n for n in tables if n.endswith("_history")]:
-            assert got.pop(name) == sorted(tables.pop(name) * 2), name
-    assert got == tables  # the published tables equal a clean run's
+    # The published tables equal a clean run's, history included: when the killed run's publish had
+    # committed, the rerun's identical snapshot replaced it (the month is in history once).
+    assert got == tables
     con = duckdb.connect(str(Settings(home=home).warehouse_path), read_only=True)
     try:
-        statuses = [s for (s,) in con.execute("select status from ops.runs order by started_at").fetchall()]
+        runs = con.execute("select run_id, status, error from ops.runs order by started_at").fetchall()
+        snapshots = con.execute("select run_id from published.snapshots where period = ?", [PERIOD]).fetchall()
     finally:
         con.close()
-    assert statuses == ["crashed", "published"]
+    assert [status for _, status, _ in runs] == ["crashed", "published"]
+    assert snapshots == [(runs[1][0],)]
+    if point in PUBLISHED_BEFORE_THE_CRASH:
+        assert "replaced by it" in runs[0][2]

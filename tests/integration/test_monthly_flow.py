@@ -229,6 +229,62 @@ def test_rerun_loads_nothing_twice_and_publishes_a_new_snapshot(home, first_run,
     assert _q(home, "select count(*) from published.income_bands")[0][0] == CUSTOMERS
 
 
+def test_a_crashed_runs_committed_snapshot_is_replaced_by_its_reruns_identical_one(home, first_run, tmp_path):
+    """A run killed after its publish committed left a whole snapshot and no record of finishing. Its rerun
+    computes the same rows: they replace the crashed run's, so history holds the month once, as after one
+    clean run. A finished run's snapshot, or a crashed run's that differs, stays (any rerun's does)."""
+    import uuid
+
+    from ledgerband.tasks.context import RunContext
+    from ledgerband.tasks.publish import publish_snapshot
+    from ledgerband.tasks.settings import get_settings
+
+    for suffix in ("", ".wal"):  # a copy: the module's warehouse stays as the other tests left it
+        if (home / f"warehouse.duckdb{suffix}").exists():
+            shutil.copy(home / f"warehouse.duckdb{suffix}", tmp_path / f"warehouse.duckdb{suffix}")
+    con = duckdb.connect(str(tmp_path / "warehouse.duckdb"))
+    [(old,)] = con.execute("select run_id from published.snapshots where is_current").fetchall()
+
+    def history_rows(run_id):
+        return con.execute(
+            "select count(*) from published.income_bands_history where run_id = ?", [run_id]
+        ).fetchall()[0][0]
+
+    def republish(status, change=0.0):
+        con.execute("update ops.runs set status = ? where run_id = ?", [status, old])
+        new = str(uuid.uuid4())
+        con.execute(
+            "insert into ml.predictions by name select * replace ($new as run_id, "
+            "income_value + case when customer_id = (select min(customer_id) from ml.predictions "
+            "where run_id = $old) then $change else 0 end as income_value) "
+            "from ml.predictions where run_id = $old",
+            {"new": new, "old": old, "change": change},
+        )
+        publish_snapshot(con, RunContext.create("2026-10", settings=get_settings(), run_id=new), "v-test")
+        return new
+
+    try:
+        snapshots = con.execute("select count(*) from published.snapshots").fetchall()[0][0]
+        rows = history_rows(old)
+        new = republish("crashed")
+        assert history_rows(old) == 0 and history_rows(new) == rows
+        assert con.execute("select count(*) from published.snapshots").fetchall()[0][0] == snapshots
+        assert con.execute("select count(*) from published.snapshots where run_id = ?", [old]).fetchall() == [(0,)]
+        [(error,)] = con.execute("select error from ops.runs where run_id = ?", [old]).fetchall()
+        assert "replaced by it" in error and new in error
+
+        old = new
+        kept = republish("published")  # a finished run's snapshot is never removed
+        assert history_rows(old) == rows and history_rows(kept) == rows
+
+        old = kept
+        differing = republish("crashed", change=1000.0)  # one customer's amount differs: a different answer
+        assert history_rows(old) == rows and history_rows(differing) == rows
+        assert con.execute("select count(*) from published.snapshots").fetchall()[0][0] == snapshots + 2
+    finally:
+        con.close()
+
+
 def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(
     home, first_run, demo, monkeypatch, http_sink
 ):
