@@ -44,3 +44,12 @@ class GateStopped(LedgerbandError):
 
 class ValidationEngineError(LedgerbandError):
     """The expectation engine could not evaluate a rule (never treated as pass or fail)."""
+
+
+class ModelFileRefused(LedgerbandError):
+    """A saved model file is not the one this pipeline wrote (its checksum differs, or none was recorded)."""
+
+
+class PublishWriteError(LedgerbandError):
+    """The readers' copy or Parquet could not be written (disk full, read-only folder); what readers had
+    before is left in place. Not retried: neither mends itself in seconds."""

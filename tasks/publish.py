@@ -9,6 +9,7 @@ beside the old one and moved over it in one rename.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 from dataclasses import dataclass
@@ -22,7 +23,7 @@ from prefect.cache_policies import NO_CACHE
 from ledgerband.tasks.bands import write_band_table
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.contract import apply_comments
-from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.errors import LedgerbandError, PublishWriteError
 from ledgerband.tasks.faults import checkpoint
 from ledgerband.tasks.retry import IO_RETRIES
 from ledgerband.tasks.train import TrainSummary
@@ -124,7 +125,9 @@ HISTORY_TABLES = ("income_bands_history", "band_summary_history", "band_movers_h
 RUN_NAMING_COLUMNS = frozenset({"run_id", "model_version", "snapshot_id", "published_at"})
 
 
-def replace_identical_crashed_snapshots(con: duckdb.DuckDBPyConnection, run_id: str, period: str) -> list[str]:
+def replace_identical_crashed_snapshots(
+    con: duckdb.DuckDBPyConnection, run_id: str, period: str
+) -> list[str]:
     """Remove the month's snapshots written by runs that crashed after their publish committed, when the
     snapshot `run_id` is writing holds the same rows; returns their run ids.
 
@@ -151,7 +154,10 @@ def replace_identical_crashed_snapshots(con: duckdb.DuckDBPyConnection, run_id: 
             con.execute(f"delete from published.{table} where run_id = ?", [old])
         con.execute(
             "update ops.runs set error = coalesce(error || '; ', '') || ? where run_id = ?",
-            [f"its snapshot, committed before it ended, held the same rows as run {run_id}'s and was replaced by it", old],
+            [
+                f"its snapshot, committed before it ended, held the same rows as run {run_id}'s and was replaced by it",
+                old,
+            ],
         )
     return replaced
 
@@ -184,18 +190,32 @@ def _same_snapshot(con: duckdb.DuckDBPyConnection, a: str, b: str) -> bool:
 
 def export_reader_copy(con: duckdb.DuckDBPyConnection, target: Path) -> Path:
     """Rebuild the readers' DuckDB file beside the old one, then move it over in one rename."""
-    target.parent.mkdir(parents=True, exist_ok=True)
     tmp = target.with_name(target.name + ".incoming")
-    tmp.unlink(missing_ok=True)
-    con.execute(f"attach '{_sql_path(tmp)}' as reader_copy")
+    leftovers = (tmp, tmp.with_name(tmp.name + ".wal"))
     try:
-        for name, query in READER_TABLES.items():
-            con.execute(f"create table reader_copy.{name} as {query}")
-        apply_comments(con, "reader_copy")
-    finally:
-        con.execute("detach reader_copy")
-    checkpoint("mid_publish")
-    os.replace(tmp, target)
+        target.parent.mkdir(parents=True, exist_ok=True)
+        for path in leftovers:
+            if path.exists():
+                path.unlink()
+        con.execute(f"attach '{_sql_path(tmp)}' as reader_copy")
+        try:
+            for name, query in READER_TABLES.items():
+                con.execute(f"create table reader_copy.{name} as {query}")
+            apply_comments(con, "reader_copy")
+        finally:
+            con.execute("detach reader_copy")
+        checkpoint("mid_publish")
+        os.replace(tmp, target)
+    except (OSError, duckdb.Error) as exc:
+        # Disk full, a read-only folder: the half-written copy goes, the readers' copy stays as it was.
+        for path in leftovers:
+            with contextlib.suppress(OSError):  # a read-only folder refuses even this; nothing was written
+                if path.exists():
+                    path.unlink()
+        raise PublishWriteError(
+            f"could not write the readers' copy {target}: {exc}; the previous copy is unchanged and readers "
+            "still see the snapshot it holds"
+        ) from exc
     return target
 
 
@@ -206,53 +226,61 @@ def write_parquet(con: duckdb.DuckDBPyConnection, root: Path, period: str) -> di
     (rows and the sum of its amount or count), then renamed into place; a reader never sees half a
     partition. Returns rows per table.
     """
-    import shutil
-    import uuid
-
     [(run_id,)] = con.execute(
         "select run_id from published.snapshots where period = ? order by published_at desc limit 1", [period]
     ).fetchall()
     rows = {}
     for name, history in PARQUET_TABLES.items():
-        # The snapshot's rows in a temporary table (run id bound, never written into the SQL text).
-        con.execute(
-            f"create or replace temp table parquet_rows as select * from ({READER_TABLES[history]}) where run_id = ?",
-            [run_id],
-        )
-        measure = "annual_income_estimate" if name == "income_bands" else "customer_count"
-        expected = con.execute(f"select count(*), sum({measure}) from parquet_rows").fetchall()[0]
-        staging = root / f".incoming-{uuid.uuid4().hex[:8]}"
-        staging.mkdir(parents=True)
         try:
-            con.execute(
-                f"copy parquet_rows to '{_sql_path(staging / name)}' (format parquet, partition_by (period))"
-            )
-            part = staging / name / f"period={period}"
-            got = (
-                con.execute(
-                    f"select count(*), sum({measure}) from read_parquet('{_sql_path(part)}/*.parquet')"
-                ).fetchall()[0]
-                if part.exists()
-                else (0, None)
-            )
-            if tuple(got) != tuple(expected):
-                raise LedgerbandError(
-                    f"Parquet {name} for {period}: wrote {got}, the warehouse holds {expected}"
-                )
-            final = root / name / f"period={period}"
-            final.parent.mkdir(parents=True, exist_ok=True)
-            old = final.with_name(final.name + ".old")
-            shutil.rmtree(old, ignore_errors=True)
-            if final.exists():
-                final.rename(old)
-            if part.exists():
-                part.rename(final)
-            shutil.rmtree(old, ignore_errors=True)
-        finally:
-            shutil.rmtree(staging, ignore_errors=True)
-            con.execute("drop table if exists parquet_rows")
-        rows[name] = int(expected[0])
+            rows[name] = _write_parquet_table(con, root, period, run_id, name, history)
+        except (OSError, duckdb.Error) as exc:
+            raise PublishWriteError(
+                f"could not write Parquet {name} for {period} under {root}: {exc}; that table's earlier "
+                "partition for the month (if any) is unchanged"
+            ) from exc
     return rows
+
+
+def _write_parquet_table(con, root: Path, period: str, run_id: str, name: str, history: str) -> int:
+    import shutil
+    import uuid
+
+    # The snapshot's rows in a temporary table (run id bound, never written into the SQL text).
+    con.execute(
+        f"create or replace temp table parquet_rows as select * from ({READER_TABLES[history]}) where run_id = ?",
+        [run_id],
+    )
+    measure = "annual_income_estimate" if name == "income_bands" else "customer_count"
+    expected = con.execute(f"select count(*), sum({measure}) from parquet_rows").fetchall()[0]
+    staging = root / f".incoming-{uuid.uuid4().hex[:8]}"
+    staging.mkdir(parents=True)
+    try:
+        con.execute(
+            f"copy parquet_rows to '{_sql_path(staging / name)}' (format parquet, partition_by (period))"
+        )
+        part = staging / name / f"period={period}"
+        got = (
+            con.execute(
+                f"select count(*), sum({measure}) from read_parquet('{_sql_path(part)}/*.parquet')"
+            ).fetchall()[0]
+            if part.exists()
+            else (0, None)
+        )
+        if tuple(got) != tuple(expected):
+            raise LedgerbandError(f"Parquet {name} for {period}: wrote {got}, the warehouse holds {expected}")
+        final = root / name / f"period={period}"
+        final.parent.mkdir(parents=True, exist_ok=True)
+        old = final.with_name(final.name + ".old")
+        shutil.rmtree(old, ignore_errors=True)
+        if final.exists():
+            final.rename(old)
+        if part.exists():
+            part.rename(final)
+        shutil.rmtree(old, ignore_errors=True)
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+        con.execute("drop table if exists parquet_rows")
+    return int(expected[0])
 
 
 def _sql_path(path: Path) -> str:

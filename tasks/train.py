@@ -24,6 +24,7 @@ from sklearn.pipeline import Pipeline
 from ledgerband.tasks.assess import LearningCurve, group_errors, learning_curve_of, population_shift
 from ledgerband.tasks.bands import assign_band_index, income_to_publish
 from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.errors import ModelFileRefused
 from ledgerband.tasks.gates.drift import profile
 from ledgerband.tasks.intervals import (
     Intervals,
@@ -302,6 +303,11 @@ def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainS
         },
     )
     summary.model_version = model_version
+    # The file's checksum beside its figures: a model is only ever loaded when its bytes still match.
+    con.execute(
+        "update ml.model_runs set model_sha256 = ? where run_id = ? and is_champion",
+        [file_sha256(model_path), run_id],
+    )
     summary.model_path = str(model_path)
     return summary
 
@@ -441,11 +447,44 @@ TRUSTED_TYPES = [
 ]
 
 
-def load_model(path: Path) -> Pipeline:
-    """Load a saved champion with an explicit allow-list of types."""
+def file_sha256(path: Path) -> str:
+    import hashlib
+
+    digest = hashlib.sha256()
+    with path.open("rb") as f:
+        for block in iter(lambda: f.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def load_model(path: Path, sha256: str | None) -> Pipeline:
+    """Load a champion this pipeline saved: its bytes must hash to the SHA-256 kept in ml.model_runs
+    when it was written (a file replaced or edited since is refused, never unpacked), and its types must
+    be on an explicit allow-list."""
     import skops.io as sio
 
+    if not sha256:
+        raise ModelFileRefused(f"{path}: no checksum recorded for this model file; it is not loaded")
+    got = file_sha256(path)
+    if got != sha256:
+        raise ModelFileRefused(
+            f"{path}: SHA-256 {got[:12]}… differs from {sha256[:12]}… recorded in ml.model_runs when it "
+            "was written; the file was changed or replaced and is not loaded"
+        )
     return sio.load(path, trusted=TRUSTED_TYPES)
+
+
+def load_champion(con: duckdb.DuckDBPyConnection, models_dir: Path, run_id: str) -> tuple[Pipeline, dict]:
+    """The champion run `run_id` saved, checked against its recorded checksum, and its model card."""
+    rows = con.execute(
+        "select period, model_sha256 from ml.model_runs where run_id = ? and is_champion", [run_id]
+    ).fetchall()
+    if not rows:
+        raise ModelFileRefused(f"run {run_id} recorded no champion in ml.model_runs")
+    period, sha256 = rows[0]
+    folder = models_dir / period / run_id
+    model = load_model(folder / "model.skops", sha256)
+    return model, json.loads((folder / "model_card.json").read_text())
 
 
 def _save_model(pipe: Pipeline, folder: Path, card: dict) -> Path:

@@ -156,6 +156,8 @@ alter table ml.model_runs add column if not exists band_accuracy_mean double;
 alter table ml.model_runs add column if not exists within_one_band_mean double;
 alter table ml.model_runs add column if not exists n_compared bigint;
 alter table ml.model_runs add column if not exists is_baseline boolean;
+-- SHA-256 of the champion's saved skops file (champion row only): a model is loaded only when it matches.
+alter table ml.model_runs add column if not exists model_sha256 varchar;
 alter table ml.cv_scores add column if not exists repeat_index bigint;
 alter table ml.cv_scores add column if not exists fold_index bigint;
 alter table ml.cv_scores add column if not exists band_accuracy double;

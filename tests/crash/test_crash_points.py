@@ -9,76 +9,24 @@ run leaves behind.
 
 from __future__ import annotations
 
-import os
-import subprocess
-import sys
 import time
 from pathlib import Path
 
 import duckdb
 import pytest
 
-from ledgerband.tasks.faults import FAULT_ENV, FAULT_EXIT_CODE, POINTS
+from ledgerband.tasks.faults import FAULT_EXIT_CODE, POINTS
 from ledgerband.tasks.publish import READER_TABLES
 from ledgerband.tasks.runtime import orphaned_servers
 from ledgerband.tasks.settings import Settings
+from tests.crash.conftest import PERIOD
+from tests.crash.conftest import run_cli as _run
 
 pytestmark = pytest.mark.crash
 
-PERIOD = "2026-10"
-# A small bank and a quick model comparison: what is under test is crash safety, not accuracy.
-CONFIG = """
-[accuracy]
-min_labelled_customers = 50
-min_mae_skill = 0.0
-min_band_skill = 0.0
-coverage_tolerance = 0.5
-[train]
-candidates = ["linear_regression", "ridge"]
-cv_folds = 3
-cv_repeats = 1
-"""
 # Points after the publish transaction commits: the killed run left a whole snapshot of the month.
 PUBLISHED_BEFORE_THE_CRASH = {"mid_publish", "after_swap"}
 VOLATILE = ("run_id", "snapshot_id", "model_version")  # name the run (or its model) that wrote a row
-
-
-@pytest.fixture(scope="module")
-def landing(tmp_path_factory):
-    from ledgerband.tasks.demo.generator import generate
-
-    root = tmp_path_factory.mktemp("crash-landing")
-    files = generate(root / "landing", root / "answers.parquet", customers=600, months=4, seed=5)
-    (root / "ledgerband.toml").write_text(CONFIG)
-    return files.landing_dir
-
-
-def _run(home: Path, landing: Path, fault: str | None = None) -> subprocess.CompletedProcess:
-    env = {k: v for k, v in os.environ.items() if not k.startswith(("PREFECT_API_URL", FAULT_ENV))}
-    env.update(
-        LEDGERBAND_HOME=str(home),
-        LEDGERBAND_CONFIG=str(landing.parent / "ledgerband.toml"),
-        PREFECT_HOME=str(home / "prefect"),
-    )
-    if fault:
-        env[FAULT_ENV] = fault
-    command = [
-        sys.executable,
-        "-m",
-        "ledgerband.flows.cli",
-        "run",
-        "--period",
-        PERIOD,
-        "--landing",
-        str(landing),
-    ]
-    # Output to a file, not a pipe: a killed run's orphaned server would hold a pipe open (and the test
-    # would wait on it) until it is reaped.
-    home.mkdir(parents=True, exist_ok=True)
-    log = home.parent / f"{home.name}-{fault or 'run'}-{time.monotonic_ns()}.log"
-    with log.open("w") as out:
-        done = subprocess.run(command, env=env, stdout=out, stderr=subprocess.STDOUT, timeout=600)
-    return subprocess.CompletedProcess(command, done.returncode, log.read_text(), "")
 
 
 def _tables(home: Path) -> dict[str, list[tuple]]:
@@ -116,11 +64,8 @@ def _warehouse_figures(home: Path) -> tuple:
 
 
 @pytest.fixture(scope="module")
-def clean(tmp_path_factory, landing):
-    home = tmp_path_factory.mktemp("crash-clean")
-    result = _run(home, landing)
-    assert result.returncode == 0, result.stdout + result.stderr
-    return _tables(home), _warehouse_figures(home)
+def clean(clean_home):
+    return _tables(clean_home), _warehouse_figures(clean_home)
 
 
 def _alive(pids: list[int]) -> list[int]:
@@ -164,7 +109,9 @@ def test_a_run_killed_here_is_rerun_to_the_clean_answer(point, tmp_path, landing
     con = duckdb.connect(str(Settings(home=home).warehouse_path), read_only=True)
     try:
         runs = con.execute("select run_id, status, error from ops.runs order by started_at").fetchall()
-        snapshots = con.execute("select run_id from published.snapshots where period = ?", [PERIOD]).fetchall()
+        snapshots = con.execute(
+            "select run_id from published.snapshots where period = ?", [PERIOD]
+        ).fetchall()
     finally:
         con.close()
     assert [status for _, status, _ in runs] == ["crashed", "published"]

@@ -199,14 +199,13 @@ def test_report_carries_the_cautions_and_the_model_comparison(first_run):
 def test_saved_model_reloads_and_reproduces_the_estimates(home, first_run):
     import numpy as np
 
-    from ledgerband.tasks.train import load_model, model_frame
+    from ledgerband.tasks.train import load_champion, model_frame
 
     folder = home / "models" / "2026-10" / first_run.run_id
     assert sorted(p.name for p in folder.iterdir()) == ["model.skops", "model_card.json"]
-    card = json.loads((folder / "model_card.json").read_text())
-    assert "sex" not in card["features"] and "age_years" not in card["features"]
-    model = load_model(folder / "model.skops")
     con = duckdb.connect(str(home / "warehouse.duckdb"), read_only=True)
+    model, card = load_champion(con, home / "models", first_run.run_id)
+    assert "sex" not in card["features"] and "age_years" not in card["features"]
     frame = model_frame(con)
     stored = dict(
         con.execute(
@@ -216,6 +215,35 @@ def test_saved_model_reloads_and_reproduces_the_estimates(home, first_run):
     con.close()
     again = np.clip(model.predict(frame[card["features"]]), 0, None)
     assert np.allclose(again, frame["customer_id"].map(stored).to_numpy())
+
+
+def test_a_saved_model_changed_after_it_was_written_is_refused(home, first_run, tmp_path):
+    """Only skops files this pipeline wrote are loaded: ml.model_runs keeps the file's SHA-256 (checked here
+    with hashlib, the standard library's FIPS 180-4 implementation) and a changed file is never unpacked."""
+    import hashlib
+
+    from ledgerband.tasks.errors import ModelFileRefused
+    from ledgerband.tasks.train import load_model
+
+    saved = home / "models" / "2026-10" / first_run.run_id / "model.skops"
+    [(recorded,)] = _q(
+        home, "select model_sha256 from ml.model_runs where run_id = ? and is_champion", [first_run.run_id]
+    )
+    assert recorded == hashlib.sha256(saved.read_bytes()).hexdigest()
+    assert _q(
+        home,
+        "select count(model_sha256) from ml.model_runs where run_id = ? and not is_champion",
+        [first_run.run_id],
+    ) == [(0,)]
+    tampered = tmp_path / "model.skops"
+    data = bytearray(saved.read_bytes())
+    data[len(data) // 2] ^= 0x01  # one bit
+    tampered.write_bytes(bytes(data))
+    with pytest.raises(ModelFileRefused, match="differs from"):
+        load_model(tampered, recorded)
+    with pytest.raises(ModelFileRefused, match="no checksum"):
+        load_model(saved, None)
+    load_model(saved, recorded)  # the file as written loads
 
 
 def test_rerun_loads_nothing_twice_and_publishes_a_new_snapshot(home, first_run, demo):
@@ -269,7 +297,9 @@ def test_a_crashed_runs_committed_snapshot_is_replaced_by_its_reruns_identical_o
         new = republish("crashed")
         assert history_rows(old) == 0 and history_rows(new) == rows
         assert con.execute("select count(*) from published.snapshots").fetchall()[0][0] == snapshots
-        assert con.execute("select count(*) from published.snapshots where run_id = ?", [old]).fetchall() == [(0,)]
+        assert con.execute("select count(*) from published.snapshots where run_id = ?", [old]).fetchall() == [
+            (0,)
+        ]
         [(error,)] = con.execute("select error from ops.runs where run_id = ?", [old]).fetchall()
         assert "replaced by it" in error and new in error
 
