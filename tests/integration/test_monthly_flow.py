@@ -17,10 +17,19 @@ CUSTOMERS = 400
 
 @pytest.fixture(scope="module")
 def home(tmp_path_factory, prefect_api):
+    import logging
+
     home = tmp_path_factory.mktemp("flow-home")
+    # The runs' INFO lines reach the API, as in an operator's shell (the log scan below reads them).
+    run_loggers = [logging.getLogger(f"prefect.{name}") for name in ("flow_runs", "task_runs")]
+    levels = [logger.level for logger in run_loggers]
+    for logger in run_loggers:
+        logger.setLevel(logging.INFO)
     with pytest.MonkeyPatch.context() as mp:
         mp.setenv("LEDGERBAND_HOME", str(home))
         yield home
+    for logger, level in zip(run_loggers, levels, strict=True):
+        logger.setLevel(level)
 
 
 @pytest.fixture(scope="module")
@@ -608,3 +617,35 @@ def test_the_report_renders_in_a_real_browser(first_run, tmp_path):
         assert cautions.is_displayed() and "Internal reporting only" in cautions.text
     finally:
         driver.quit()
+
+
+def test_no_customer_level_value_reaches_alerts_artifacts_or_reports(home, first_run, demo):
+    """Runs published, withheld and stopped by now (the tests above): every Prefect artifact, alert, report
+    and validation page, and the run records and decisions that reach alerts and readers, are scanned for
+    the demo's customer ids and posting amounts. (The runs' INFO logs are scanned in test_real_server,
+    where they reach the API as in an operator's setup.)"""
+    from prefect.client.orchestration import get_client
+
+    from tests.leaks import demo_needles, leaks
+
+    ids, amounts = demo_needles(demo.customers, demo.extracts)
+    assert len(ids) == CUSTOMERS and len(amounts) > 1_000
+    texts: dict[str, str] = {}
+    for path in sorted((home / "reports").rglob("*")) + [home / "alerts" / "alerts.jsonl"]:
+        if path.is_file() and path.suffix in (".html", ".json", ".jsonl"):
+            texts[str(path.relative_to(home))] = path.read_text()
+    texts["ops.runs"] = json.dumps(_q(home, "select error, stages, gate_figures from ops.runs"), default=str)
+    texts["published.decisions"] = json.dumps(
+        _q(home, "select reason, figures, thresholds from published.decisions"), default=str
+    )
+    logs, artifacts = [], []
+    with get_client(sync_client=True) as client:  # every page: the API returns at most 200 at a time
+        for read, into in ((client.read_logs, logs), (client.read_artifacts, artifacts)):
+            while page := read(limit=200, offset=len(into)):
+                into.extend(page)
+    texts["prefect logs (warnings and errors)"] = "\n".join(log.message for log in logs)
+    texts["prefect artifacts"] = "\n".join(json.dumps(a.data, default=str) for a in artifacts)
+    assert artifacts and any(k.endswith(".validation.json") for k in texts)
+    planted = f"<td>{min(ids)}</td> paid {float(min(amounts)):,.2f}"  # the scan finds what it looks for
+    assert leaks({"planted.html": planted}, ids, amounts) == {"planted.html": [min(ids), min(amounts)]}
+    assert leaks(texts, ids, amounts) == {}

@@ -129,9 +129,10 @@ def test_the_schedule_on_the_server_is_06_00_dublin_on_the_3rd(server, deployed)
 
 def test_a_worker_runs_a_scheduled_month_and_publishes(server, deployed):
     from ledgerband.tasks.demo.generator import generate
+    from tests.leaks import demo_needles, leaks
 
     home = server["root"] / "home"
-    generate(
+    files = generate(
         home / "landing",
         server["root"] / "answers.csv",
         customers=300,
@@ -184,6 +185,10 @@ def test_a_worker_runs_a_scheduled_month_and_publishes(server, deployed):
     ).json()
     assert {a["type"] for a in artifacts} >= {"markdown", "table"}
     assert any("ledgerband 2026-10: published" in (a.get("data") or "") for a in artifacts)
+    # No customer id or posting amount in the run's logs (INFO included) or artifacts.
+    ids, amounts = demo_needles(files.customers, files.extracts)
+    texts = {"logs": "\n".join(messages), "artifacts": "\n".join(str(a.get("data")) for a in artifacts)}
+    assert len(messages) > 20 and leaks(texts, ids, amounts) == {}
 
     import duckdb
 
