@@ -23,7 +23,7 @@ from ledgerband.tasks.faults import checkpoint
 from ledgerband.tasks.gates import enforce
 from ledgerband.tasks.gates.manifest import FileCounts, reconcile
 from ledgerband.tasks.landing.contract import CUSTOMER_COLUMNS, LEDGER_COLUMNS, sha256_file
-from ledgerband.tasks.landing.manifest import Manifest, manifests_to_load, read_manifest
+from ledgerband.tasks.landing.manifest import Manifest, confined, manifests_to_load, read_manifest
 from ledgerband.tasks.landing.records import Records, read_records
 from ledgerband.tasks.retry import IO_RETRIES
 from ledgerband.tasks.validate import extract_contract_decision
@@ -183,6 +183,7 @@ def load_customers(con: duckdb.DuckDBPyConnection, ctx: RunContext, path: Path) 
     """Load the customer reference file into raw.customers (skipped when the same bytes are accepted)."""
     if not path.is_file():
         raise ExtractError(f"customer reference file not found: {path}")
+    confined(path.parent, path)  # the landing folder holds it; a link out of it is refused
     sha = sha256_file(path)
     accepted = loads.accepted_load(con, sha, loads.CUSTOMERS)
     if accepted:

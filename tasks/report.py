@@ -91,9 +91,11 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
     quarantine = _rows(
         con,
         """
-        select rule, count(*)::bigint as records, min(q.reason) as example
+        select rule, count(*)::bigint as records,
+            -- where, never what: the record's values stay in quarantine.ledger_lines
+            arg_min(parse_filename(q.source_file) || ' line ' || q.source_line, q.source_line) as example
         from (
-            select unnest(failed_rules) as rule, reason, load_id
+            select unnest(failed_rules) as rule, source_file, source_line, load_id
             from quarantine.ledger_lines
         ) as q
         inner join ops.loads as l on l.load_id = q.load_id

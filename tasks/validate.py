@@ -27,7 +27,7 @@ import pandas as pd
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
-from ledgerband.tasks import codelists, loads
+from ledgerband.tasks import codelists, loads, pushdown
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import LedgerbandError, ValidationEngineError
 from ledgerband.tasks.gates import QUALITY, Decision, enforce
@@ -360,6 +360,62 @@ def _first_field(test: str) -> str:
     return f"case {whens} end"
 
 
+def _evaluate_pushed(
+    con: duckdb.DuckDBPyConnection,
+    query: str,
+    query_params: dict,
+    rules: list[dict],
+    params: dict,
+    load_id: str,
+    kept: dict[str, dict],
+    failures: dict[int, dict[str, str]],
+) -> None:
+    """The rules DuckDB evaluates (tasks/pushdown.py): their results in GX's form, their broken records
+    named as the GX path names them."""
+    if not rules:
+        return
+    carry = tuple(c for c in _NAMES_A_FIELD if any(e["kwargs"]["column"] == c for e in rules))
+    outcomes, broken, helpers = pushdown.evaluate(
+        con, query, query_params, rules, params, RESULTS_KEPT, carry
+    )
+    for exp, outcome in zip(rules, outcomes, strict=True):
+        checked = outcome.element_count - outcome.missing_count
+        kept[exp["meta"]["rule"]] = {
+            "expectation_config": {"type": exp["type"], "kwargs": exp["kwargs"], "meta": exp["meta"]},
+            "success": outcome.success(exp["kwargs"].get("mostly")),
+            "chunks": 1,
+            "evaluated_by": "duckdb",
+            "result": {
+                "element_count": outcome.element_count,
+                "missing_count": outcome.missing_count,
+                "unexpected_count": outcome.unexpected_count,
+                "partial_unexpected_index_list": [{"source_line": line} for line in outcome.lines],
+                "unexpected_percent": 100.0 * outcome.unexpected_count / checked if checked else 0.0,
+            },
+        }
+    if not broken:
+        return
+    # The fields as received, for the broken records only.
+    text = (
+        con.execute(
+            "select * from raw.ledger_lines where load_id = ? and list_contains(?, source_line)",
+            [load_id, list(broken)],
+        )
+        .df()
+        .set_index("source_line")
+    )
+    for line, hits in broken.items():
+        for i in hits:
+            rule, column = rules[i]["meta"]["rule"], rules[i]["kwargs"]["column"]
+            if column in _NAMES_A_FIELD:
+                field = str(helpers[line][column])
+                failures[line][rule] = f"{field}={str(text.at[line, field])[:60]!r}"
+                continue
+            shown = _SHOWN_AS.get(column, column)
+            value = text.at[line, shown] if shown in text.columns else None
+            failures[line][rule] = f"{shown}={None if pd.isna(value) else str(value)!r}"
+
+
 def validate_load(
     con: duckdb.DuckDBPyConnection, load_id: str, settings: Settings, suite_name: str = "ledger_lines"
 ) -> ValidationSummary:
@@ -401,13 +457,19 @@ def validate_load(
         control_field=_first_field("regexp_matches(cur.{c}, '[\\x00-\\x1f\\x7f]')"),
         long_field=_first_field("length(cur.{c}) > $max_field_length"),
     )
-    reader = con.sql(
-        query, params={"load_id": load_id, "max_field_length": settings.quality.max_field_length}
-    ).to_arrow_reader(settings.quality.chunk_rows)
-    for batch in reader:
-        frame = batch.to_pandas()
-        collect(_run(f"{suite_name}.row", parts.row, frame, params), frame)
-    for exp in parts.whole_column:
+    query_params = {"load_id": load_id, "max_field_length": settings.quality.max_field_length}
+    relation = con.sql(query, params=query_params)
+    pushed: list[dict] = []
+    if settings.quality.engine == "duckdb":
+        types = dict(zip(relation.columns, (str(t) for t in relation.types), strict=True))
+        pushed = [e for e in parts.row + parts.whole_column if pushdown.translatable(e, types)]
+        _evaluate_pushed(con, query, query_params, pushed, params, load_id, kept, failures)
+    by_gx_row = [e for e in parts.row if e not in pushed]
+    if by_gx_row:
+        for batch in relation.to_arrow_reader(settings.quality.chunk_rows):
+            frame = batch.to_pandas()
+            collect(_run(f"{suite_name}.row", by_gx_row, frame, params), frame)
+    for exp in [e for e in parts.whole_column if e not in pushed]:
         column = exp["kwargs"]["column"]
         frame = (
             con.sql(

@@ -30,40 +30,16 @@ FIXTURES = Path(__file__).parent / "fixtures"
 
 
 def _guard_sockets() -> None:
-    """No test reaches past this machine: an IP connection anywhere but the loopback fails loudly.
+    """The socket guard in this process and, through PYTHONPATH, in every Python subprocess."""
+    import importlib.util
 
-    Every service a test needs (Prefect API, SMTP, HTTP sinks) listens on 127.0.0.1; a library that tried
-    to phone home (analytics, update checks, a hub download) would fail the test that caused it. Unix
-    sockets are untouched. Subprocesses a test starts are not covered (they run our own CLI, offline).
-    """
-    import ipaddress
-    import socket
-
-    real_connect, real_connect_ex = socket.socket.connect, socket.socket.connect_ex
-
-    def _check(sock: socket.socket, address) -> None:
-        if sock.family not in (socket.AF_INET, socket.AF_INET6):
-            return
-        host = address[0]
-        try:
-            loopback = host == "localhost" or ipaddress.ip_address(host).is_loopback
-        except ValueError:
-            loopback = False
-        if not loopback:
-            raise ConnectionRefusedError(
-                f"test socket guard: a connection to {address!r} was attempted; tests stay on 127.0.0.1"
-            )
-
-    def connect(self, address):
-        _check(self, address)
-        return real_connect(self, address)
-
-    def connect_ex(self, address):
-        _check(self, address)
-        return real_connect_ex(self, address)
-
-    socket.socket.connect = connect
-    socket.socket.connect_ex = connect_ex
+    folder = Path(__file__).parent / "socket_guard"
+    spec = importlib.util.spec_from_file_location("ledgerband_test_socket_guard", folder / "sitecustomize.py")
+    guard = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(guard)
+    guard.install()
+    os.environ[guard.ENV] = "1"
+    os.environ["PYTHONPATH"] = os.pathsep.join(p for p in (str(folder), os.environ.get("PYTHONPATH")) if p)
 
 
 _guard_sockets()

@@ -8,14 +8,15 @@ from pathlib import Path
 
 
 def demo_needles(customers: Path, extracts: list[Path]) -> tuple[set[str], set[str]]:
-    """The demo bank's customer ids, and its distinctive posting amounts (at least 100, with cents that are
-    not .00: a "100.00" could be any figure), as written in the extracts."""
+    """The demo bank's customer, account and transaction ids, and its distinctive posting amounts (at least
+    100, with cents that are not .00: a "100.00" could be any figure), as written in the extracts."""
     with customers.open(newline="") as f:
         ids = {row["customer_id"] for row in csv.DictReader(f)}
     amounts = set()
     for extract in extracts:
         with extract.open(newline="") as f:
             for row in csv.DictReader(f):
+                ids.update((row["txn_id"], row["account_id"]))
                 if re.fullmatch(r"\d{3,}\.\d\d", row["amount"]) and not row["amount"].endswith(".00"):
                     amounts.add(row["amount"])
     return ids, amounts

@@ -145,14 +145,14 @@ def find_manifests(landing_dir: Path, period: Period, expected_sources: Sequence
             )
         if not m.extract_path.is_file():
             raise ExtractError(f"manifest {m.path}: names file {m.file}, which is not in {folder}")
-        _confined(Path(landing_dir), m.path)
-        _confined(Path(landing_dir), m.extract_path)
+        confined(Path(landing_dir), m.path)
+        confined(Path(landing_dir), m.extract_path)
     if expected_sources:
         _check_sources(folder, manifests, list(expected_sources))
     return manifests
 
 
-def _confined(landing_dir: Path, path: Path) -> None:
+def confined(landing_dir: Path, path: Path) -> None:
     """A file is read only if it really lies in the landing folder (a symlink out of it is refused)."""
     root = landing_dir.resolve()
     if not path.resolve().is_relative_to(root):

@@ -346,18 +346,21 @@ def test_a_ledger_currency_outside_iso_4217_is_a_configuration_error():
         Settings(bands={"currency": "EUX"})
 
 
-def test_gx_results_are_kept_per_rule_and_rendered_offline(con, settings, tmp_path):
-    # The kept results are GX's own (expectation_config, success, result) merged over chunks; their
-    # counts must agree with what was quarantined, rule by rule.
+@pytest.mark.parametrize("engine", ["gx", "duckdb"])
+def test_gx_results_are_kept_per_rule_and_rendered_offline(con, settings, tmp_path, engine):
+    # The kept results are in GX's form (expectation_config, success, result), merged over chunks when
+    # GX evaluates; their counts must agree with what was quarantined, rule by rule.
     from ledgerband.tasks import validation_docs
     from ledgerband.tasks.validate import read_suite
 
-    small = Settings(home=tmp_path / "state", quality={"chunk_rows": 2})  # several chunks for 6 records
+    # Several chunks for 6 records (GX); one pass (DuckDB).
+    small = Settings(home=tmp_path / "state", quality={"chunk_rows": 2, "engine": engine})
     _, v = _ingest(con, _copy(tmp_path, "ledger_bad"), small)
     parts = read_suite("ledger_lines")
     by_rule = {r["expectation_config"]["meta"]["rule"]: r for r in v.results}
     assert set(by_rule) == {e["meta"]["rule"] for e in parts.whole_column + parts.row}
-    assert by_rule["amount_format"]["chunks"] == 3  # 6 loaded records in chunks of 2
+    assert by_rule["amount_format"]["chunks"] == (3 if engine == "gx" else 1)
+    assert by_rule["amount_format"].get("evaluated_by") == (None if engine == "gx" else "duckdb")
     for rule, result in by_rule.items():
         assert result["result"]["element_count"] == 6
         assert result["result"]["unexpected_count"] == v.rule_counts.get(rule, 0), rule
@@ -453,3 +456,13 @@ def test_hostile_files_are_refused_before_they_are_read(con, settings, tmp_path)
     os.symlink(outside, extract)
     with pytest.raises(ExtractError, match="outside the landing folder"):
         find_manifests(landing, Period(2026, 10))
+
+    # So is a customer reference file that is a link to a file elsewhere.
+    customers = landing / "customers.csv"
+    (tmp_path / "customers-elsewhere.csv").write_bytes(customers.read_bytes())
+    customers.unlink()
+    os.symlink(tmp_path / "customers-elsewhere.csv", customers)
+    with pytest.raises(ExtractError, match="customers.csv: resolves to .* outside the landing folder"):
+        load_customers(
+            con, RunContext.create("2026-10", landing, settings=Settings(), run_id="run-1"), customers
+        )

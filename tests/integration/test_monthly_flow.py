@@ -629,7 +629,7 @@ def test_no_customer_level_value_reaches_alerts_artifacts_or_reports(home, first
     from tests.leaks import demo_needles, leaks
 
     ids, amounts = demo_needles(demo.customers, demo.extracts)
-    assert len(ids) == CUSTOMERS and len(amounts) > 1_000
+    assert len(ids) > 10 * CUSTOMERS and len(amounts) > 1_000
     texts: dict[str, str] = {}
     for path in sorted((home / "reports").rglob("*")) + [home / "alerts" / "alerts.jsonl"]:
         if path.is_file() and path.suffix in (".html", ".json", ".jsonl"):

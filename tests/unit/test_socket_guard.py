@@ -25,3 +25,18 @@ def test_loopback_still_works():
         pass
     accepted.join(5)
     server.close()
+
+
+def test_a_python_subprocess_started_by_a_test_is_guarded_too():
+    import subprocess
+    import sys
+
+    code = (
+        "import socket\n"
+        "try:\n"
+        "    socket.create_connection(('192.0.2.1', 80), timeout=5)\n"  # TEST-NET-1 (RFC 5737)
+        "except ConnectionRefusedError as exc:\n"
+        "    print(exc)\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert "test socket guard" in done.stdout, done.stdout + done.stderr

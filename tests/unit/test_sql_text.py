@@ -49,6 +49,12 @@ REVIEWED = {
     "tuple; columns read from information_schema for that table, each double-quoted",
     ("tasks/publish.py", ("measure",)): "one of two literal column names chosen just above",
     ("tasks/publish.py", ("measure", "_sql_path(part)")): "as above; path quotes doubled",
+    ("tasks/pushdown.py", ("carried", "flags", "query")): "carried: helper column names from validate's own "
+    "_NAMES_A_FIELD, double-quoted; flags: predicates built by pushdown.predicate from suite rules whose column "
+    "names pass translatable() (an identifier pattern and present in the query), values bound as $regex_i, "
+    "$set_i, $min_i, $max_i; query: validate's _PARSED_QUERY",
+    ("tasks/pushdown.py", ("tallies",)): "generated names m0.., u0.. only",
+    ("tasks/pushdown.py", ("carried", "marks", "broken_any")): "carried as above; generated names u0.. only",
     ("tasks/train.py", ("table",)): "train.ML_TABLES, the module's own tuple",
     ("tasks/validate.py", ("column",)): "the suite's column name, checked against the contract's columns by "
     "read_suite's caller (a packaged suite)",
