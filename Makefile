@@ -35,7 +35,7 @@ test: venv ## lint, then run the default test suite (unit, sql, reference, integ
 test-crash: venv ## kill runs at each stage boundary and rerun them (~8 min; CI runs it after make test)
 	$(BIN)/python -m pytest tests/crash -m crash
 
-bench: venv ## benchmark the monthly flow on a larger synthetic bank (BENCH_CUSTOMERS=20000 by default)
+bench: venv ## benchmark the monthly flow at 10k and 100k customers beside plain DuckDB (BENCH_SIZES, BENCH_MONTHS)
 	$(BIN)/python -m pytest tests/bench -m bench -s -p no:cacheprovider
 
 lint: venv ## ruff (style, imports, bugbear) and sqlfluff (the DuckDB SQL under warehouse/)

@@ -14,6 +14,7 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import datetime
+from pathlib import Path
 from typing import Any, TypeVar
 
 from ledgerband.tasks.context import RunContext
@@ -52,6 +53,26 @@ def _log_stage(ctx: RunContext, record: dict) -> None:
     )
 
 
+def _reset_peak_rss() -> None:
+    """Start a new high-water mark of this process's resident memory (Linux: `echo 5 > clear_refs`,
+    proc(5)), so each stage records its own peak; elsewhere the peak is since the process started."""
+    try:
+        Path("/proc/self/clear_refs").write_text("5")
+    except OSError:
+        pass
+
+
+def _peak_rss_mb() -> float | None:
+    """The process's peak resident memory since the last reset, in MB (VmHWM, proc(5)); None off Linux."""
+    try:
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return round(int(line.split()[1]) / 1024, 1)
+    except OSError:
+        pass
+    return None
+
+
 @dataclass
 class RunLog:
     ctx: RunContext
@@ -65,8 +86,9 @@ class RunLog:
     @contextmanager
     def stage(self, name: str) -> Iterator[dict]:
         """Time one stage; an exception marks it failed (or stopped, for a gate) and propagates."""
-        record = {"stage": name, "status": "running", "seconds": None, "detail": None}
+        record = {"stage": name, "status": "running", "seconds": None, "detail": None, "peak_rss_mb": None}
         self.stages.append(record)
+        _reset_peak_rss()
         t0 = time.perf_counter()
         try:
             yield record
@@ -82,6 +104,7 @@ class RunLog:
             record["status"] = "ok" if record["status"] == "running" else record["status"]
         finally:
             record["seconds"] = round(time.perf_counter() - t0, 3)
+            record["peak_rss_mb"] = _peak_rss_mb()
             self._write()
             _log_stage(self.ctx, record)
 

@@ -1,53 +1,239 @@
-"""Benchmark: the monthly flow on a larger synthetic bank. Run with `make bench` (not in the default run).
+"""Benchmark: the monthly flow at bank sizes, beside DuckDB doing the plain work on the same files.
 
-BENCH_CUSTOMERS (default 20000) and BENCH_MONTHS (default 3) set the size. Prints the generation time,
-each stage's seconds from ops.runs, rows per second for ingest+validate, and the process's peak RSS.
+Run with `make bench` (never in the default run). BENCH_SIZES (default "10000,100000"; add 1000000 to
+try a million customers) lists the customer counts; BENCH_MONTHS (default 4, the load window of the
+default settings: fewer and the run stops for a missing month) the months.
+
+- The demo extracts are generated once per size and kept under `bench/cache/` (git-ignored).
+- The flow runs in its own process (`ledgerband run`, with its own temporary Prefect server), so its
+  peak memory is its own: the whole run's from wait4(2), each stage's from ops.runs (VmHWM, reset per
+  stage).
+- In the same run, on the same files: DuckDB scanning the extracts, loading them into a table, and one
+  plain per-customer aggregate (the reference figures); each stage's ratio to them.
+- One JSON file per run under `bench/results/` (machine facts included), and a printed table.
 """
 
 from __future__ import annotations
 
 import json
 import os
-import resource
+import platform
+import subprocess
+import sys
 import time
+from datetime import datetime
+from pathlib import Path
 
 import duckdb
 import pytest
 
 pytestmark = pytest.mark.bench
 
+ROOT = Path(__file__).parents[2]
+BENCH = ROOT / "bench"
+END_PERIOD = "2026-10"
+# The reference aggregate: one pass, seven per-customer figures, over the loaded table.
+PLAIN_AGGREGATE = """
+select customer_id,
+    count(*) as postings,
+    sum(amount) filter (where direction = 'CRDT') as credits,
+    sum(amount) filter (where direction = 'DBIT') as debits,
+    max(amount) filter (where direction = 'DBIT') as largest_debit,
+    count(distinct booking_date) as active_days,
+    count(distinct merchant_category) as categories,
+    max(balance_after) as top_balance
+from plain
+group by customer_id
+"""
 
-def test_monthly_flow_at_scale(tmp_path, monkeypatch, prefect_api):
-    customers = int(os.environ.get("BENCH_CUSTOMERS", "20000"))
-    months = int(os.environ.get("BENCH_MONTHS", "4"))
-    monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path))
-    from ledgerband.flows.monthly import monthly_run
+
+def _machine() -> dict:
+    memory_kb = next(
+        int(line.split()[1])
+        for line in Path("/proc/meminfo").read_text().splitlines()
+        if line.startswith("MemTotal")
+    )
+    model = next(
+        (
+            line.split(":", 1)[1].strip()
+            for line in Path("/proc/cpuinfo").read_text().splitlines()
+            if "model name" in line
+        ),
+        platform.processor(),
+    )
+    commit = subprocess.run(
+        ["git", "rev-parse", "HEAD"], cwd=ROOT, capture_output=True, text=True
+    ).stdout.strip()
+    return {
+        "cpus": os.cpu_count(),
+        "cpu_model": model,
+        "memory_gib": round(memory_kb / 1024 / 1024, 1),
+        "python": platform.python_version(),
+        "duckdb": duckdb.__version__,
+        "commit": commit,
+    }
+
+
+def _extracts(customers: int, months: int):
+    """The cached demo bank of this size (generated on first use)."""
     from ledgerband.tasks.demo.generator import generate
-    from ledgerband.tasks.settings import get_settings
 
-    get_settings.cache_clear()
-    s = get_settings()
+    folder = BENCH / "cache" / f"{customers}x{months}"
+    done = folder / "generated.json"
+    if not done.is_file():
+        t0 = time.perf_counter()
+        files = generate(
+            folder / "landing",
+            folder / "answers.parquet",
+            customers=customers,
+            months=months,
+            end_period=END_PERIOD,
+        )
+        done.write_text(
+            json.dumps(
+                {
+                    "rows": files.rows,
+                    "periods": files.periods,
+                    "extracts": [str(p) for p in files.extracts],
+                    "seconds": round(time.perf_counter() - t0, 1),
+                }
+            )
+        )
+    return json.loads(done.read_text()), folder / "landing"
+
+
+def _reference(extracts: list[str], work: Path) -> dict:
+    """DuckDB doing the plain thing on the same files (a fresh database file, default settings)."""
+    con = duckdb.connect(str(work / "reference.duckdb"))
+    try:
+        files = [str(p) for p in extracts]
+        t0 = time.perf_counter()
+        con.execute("select count(*) from read_csv(?, header = true, all_varchar = true)", [files]).fetchall()
+        scan = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        con.execute("create table plain as select * from read_csv(?, header = true)", [files])
+        load = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        con.execute(f"create table plain_aggregate as {PLAIN_AGGREGATE}")
+        aggregate = time.perf_counter() - t0
+    finally:
+        con.close()
+    return {"scan": round(scan, 2), "load": round(load, 2), "aggregate": round(aggregate, 2)}
+
+
+def _run_flow(landing: Path, home: Path) -> tuple[float, float, int]:
+    """`ledgerband run` for the last month in its own process: (seconds, peak RSS in MB, exit code)."""
+    env = {k: v for k, v in os.environ.items() if not k.startswith(("PREFECT_API_URL", "LEDGERBAND_"))}
+    env.update(LEDGERBAND_HOME=str(home), PREFECT_HOME=str(home / "prefect"))
+    log = (home.parent / "flow.log").open("w")
     t0 = time.perf_counter()
-    files = generate(
-        s.demo_landing_dir, s.demo_answers_path, customers=customers, months=months, end_period="2026-10"
+    proc = subprocess.Popen(
+        [
+            sys.executable,
+            "-m",
+            "ledgerband.flows.cli",
+            "run",
+            "--period",
+            END_PERIOD,
+            "--landing",
+            str(landing),
+        ],
+        env=env,
+        stdout=log,
+        stderr=subprocess.STDOUT,
     )
-    generated = time.perf_counter() - t0
-    t1 = time.perf_counter()
-    result = monthly_run(files.periods[-1], files.landing_dir)
-    total = time.perf_counter() - t1
-    con = duckdb.connect(str(s.warehouse_path), read_only=True)
-    stages = json.loads(
-        con.execute("select stages from ops.runs where run_id = ?", [result.run_id]).fetchall()[0][0]
+    _, status, usage = os.wait4(proc.pid, 0)
+    seconds = time.perf_counter() - t0
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    log.close()
+    return seconds, usage.ru_maxrss / 1024, proc.returncode
+
+
+def _bench_one(customers: int, months: int, work: Path) -> dict:
+    generated, landing = _extracts(customers, months)
+    reference = _reference(generated["extracts"], work)
+    home = work / "home"
+    home.mkdir()
+    seconds, peak_mb, code = _run_flow(landing, home)
+    assert code == 0, (work / "flow.log").read_text()[-3000:]
+    con = duckdb.connect(str(home / "warehouse.duckdb"), read_only=True)
+    try:
+        [(stages,)] = con.execute("select stages from ops.runs where status = 'published'").fetchall()
+    finally:
+        con.close()
+    stages = {
+        s["stage"]: {"seconds": s["seconds"], "peak_rss_mb": s.get("peak_rss_mb")} for s in json.loads(stages)
+    }
+    rows = generated["rows"]
+    ingest_validate = stages["ingest"]["seconds"] + stages["validate"]["seconds"]
+    return {
+        "customers": customers,
+        "months": months,
+        "records": rows,
+        "generated_seconds": generated["seconds"],
+        "flow_seconds": round(seconds, 1),
+        # Each stage resets the process's high-water mark (VmHWM) to measure its own, which wait4(2)'s
+        # maximum also reads: the run's peak is the larger of it and every stage's.
+        "flow_peak_rss_mb": round(max([peak_mb] + [s["peak_rss_mb"] or 0 for s in stages.values()])),
+        "stages": stages,
+        "reference": reference,
+        "ratios": {
+            "ingest_to_plain_load": round(stages["ingest"]["seconds"] / reference["load"], 1),
+            "ingest_validate_to_plain_load": round(ingest_validate / reference["load"], 1),
+            "features_to_plain_aggregate": round(stages["features"]["seconds"] / reference["aggregate"], 1),
+        },
+        "records_per_second": {
+            "ingest_validate": round(rows / ingest_validate),
+            "flow": round(rows / seconds),
+        },
+        "microseconds_per_record": round(seconds / rows * 1e6, 2),
+    }
+
+
+def _table(results: list[dict]) -> str:
+    sizes = [f"{r['customers']:,} x {r['months']}" for r in results]
+    lines = [f"{'':<28}" + "".join(f"{s:>22}" for s in sizes)]
+
+    def row(label, values):
+        lines.append(f"{label:<28}" + "".join(f"{v:>22}" for v in values))
+
+    row("records", [f"{r['records']:,}" for r in results])
+    for stage in results[0]["stages"]:
+        row(
+            f"  {stage}",
+            [
+                f"{r['stages'][stage]['seconds']:.1f} s / {r['stages'][stage]['peak_rss_mb'] or 0:,.0f} MB"
+                for r in results
+            ],
+        )
+    row(
+        "whole flow (own process)",
+        [f"{r['flow_seconds']:.1f} s / {r['flow_peak_rss_mb']:,} MB" for r in results],
     )
-    con.close()
-    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
-    by_stage = {st["stage"]: st["seconds"] for st in stages}
-    print(f"\nbench: {customers} customers x {months} months = {files.rows:,} ledger records")
-    print(f"  generate demo files   {generated:8.1f} s")
-    for name, seconds in by_stage.items():
-        print(f"  {name:<21} {seconds:8.1f} s")
-    print(f"  monthly flow, total   {total:8.1f} s")
-    ingest_validate = by_stage["ingest"] + by_stage["validate"]
-    print(f"  ingest+validate       {files.rows / ingest_validate:8.0f} records/s")
-    print(f"  peak RSS              {peak_mb:8.0f} MB")
-    assert result.status == "published"
+    row("DuckDB plain scan", [f"{r['reference']['scan']:.1f} s" for r in results])
+    row("DuckDB plain load", [f"{r['reference']['load']:.1f} s" for r in results])
+    row("DuckDB plain aggregate", [f"{r['reference']['aggregate']:.1f} s" for r in results])
+    row("ingest / plain load", [f"{r['ratios']['ingest_to_plain_load']}x" for r in results])
+    row("ingest+validate / load", [f"{r['ratios']['ingest_validate_to_plain_load']}x" for r in results])
+    row("features / plain aggregate", [f"{r['ratios']['features_to_plain_aggregate']}x" for r in results])
+    row("ingest+validate records/s", [f"{r['records_per_second']['ingest_validate']:,}" for r in results])
+    row("flow µs per record", [f"{r['microseconds_per_record']}" for r in results])
+    return "\n".join(lines)
+
+
+def test_monthly_flow_at_scale(tmp_path):
+    sizes = [int(s) for s in os.environ.get("BENCH_SIZES", "10000,100000").split(",")]
+    months = int(os.environ.get("BENCH_MONTHS", "4"))  # the load window: payroll.lookback_months
+    results = []
+    for customers in sizes:
+        work = tmp_path / str(customers)
+        work.mkdir()
+        results.append(_bench_one(customers, months, work))
+    table = _table(results)
+    print("\n" + table)
+    out = BENCH / "results"
+    out.mkdir(parents=True, exist_ok=True)
+    stamp = datetime.now().strftime("%Y%m%dT%H%M%S")
+    path = out / f"{stamp}-monthly.json"
+    path.write_text(json.dumps({"machine": _machine(), "results": results, "table": table}, indent=2) + "\n")
+    print(f"results: {path}")
