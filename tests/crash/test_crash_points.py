@@ -2,7 +2,7 @@
 
 Each test runs `ledgerband run` in a subprocess that ends itself abruptly (`os._exit`, as SIGKILL would:
 no cleanup runs) at one named point (tasks/faults.py), then runs the month again and compares with a run
-that was never interrupted. Marked `crash` (about 8 minutes): `make test-crash`; CI runs it after the
+that was never interrupted. Marked `crash` (about 11 minutes with the disk cases): `make test-crash`; CI runs it after the
 default suite. The runs use the CLI's own temporary Prefect server, so the test also sees what a killed
 run leaves behind.
 """
