@@ -35,6 +35,7 @@ from ledgerband.tasks.intervals import (
     predict_intervals,
     widen_to,
 )
+from ledgerband.tasks.landing.contract import sha256_file
 from ledgerband.tasks.models import (
     BASELINES,
     Comparison,
@@ -306,7 +307,7 @@ def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainS
     # The file's checksum beside its figures: a model is only ever loaded when its bytes still match.
     con.execute(
         "update ml.model_runs set model_sha256 = ? where run_id = ? and is_champion",
-        [file_sha256(model_path), run_id],
+        [sha256_file(model_path), run_id],
     )
     summary.model_path = str(model_path)
     return summary
@@ -447,16 +448,6 @@ TRUSTED_TYPES = [
 ]
 
 
-def file_sha256(path: Path) -> str:
-    import hashlib
-
-    digest = hashlib.sha256()
-    with path.open("rb") as f:
-        for block in iter(lambda: f.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
-
-
 def load_model(path: Path, sha256: str | None) -> Pipeline:
     """Load a champion this pipeline saved: its bytes must hash to the SHA-256 kept in ml.model_runs
     when it was written (a file replaced or edited since is refused, never unpacked), and its types must
@@ -465,7 +456,7 @@ def load_model(path: Path, sha256: str | None) -> Pipeline:
 
     if not sha256:
         raise ModelFileRefused(f"{path}: no checksum recorded for this model file; it is not loaded")
-    got = file_sha256(path)
+    got = sha256_file(path)
     if got != sha256:
         raise ModelFileRefused(
             f"{path}: SHA-256 {got[:12]}… differs from {sha256[:12]}… recorded in ml.model_runs when it "

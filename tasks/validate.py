@@ -407,13 +407,18 @@ def _evaluate_pushed(
     for line, hits in broken.items():
         for i in hits:
             rule, column = rules[i]["meta"]["rule"], rules[i]["kwargs"]["column"]
-            if column in _NAMES_A_FIELD:
-                field = str(helpers[line][column])
-                failures[line][rule] = f"{field}={str(text.at[line, field])[:60]!r}"
-                continue
-            shown = _SHOWN_AS.get(column, column)
-            value = text.at[line, shown] if shown in text.columns else None
-            failures[line][rule] = f"{shown}={None if pd.isna(value) else str(value)!r}"
+            failures[line][rule] = _broken_field(column, helpers[line].get(column), text, line)
+
+
+def _broken_field(column: str, helper, text: pd.DataFrame, line: int, fallback=None) -> str:
+    """How a quarantined record's broken field is named in its reason: the field as received (a helper
+    column is shown by the field it was derived from; a text-hygiene helper holds the field's name)."""
+    if column in _NAMES_A_FIELD:
+        field = str(helper)
+        return f"{field}={str(text.at[line, field])[:60]!r}"
+    shown = _SHOWN_AS.get(column, column)
+    value = text.at[line, shown] if shown in text.columns else fallback
+    return f"{shown}={None if pd.isna(value) else str(value)!r}"
 
 
 def validate_load(
@@ -442,15 +447,10 @@ def validate_load(
                 continue
             rule = r.expectation_config.meta["rule"]
             column = r.expectation_config.kwargs.get("column")
-            shown = _SHOWN_AS.get(column, column)  # a helper column is reported by the field as received
             for item in r.result.get("unexpected_index_list") or []:
                 line = int(item["source_line"])
-                if column in _NAMES_A_FIELD:  # the helper holds the offending field's name: show that field
-                    field = str(text.at[line, column])
-                    failures[line][rule] = f"{field}={str(text.at[line, field])[:60]!r}"
-                    continue
-                value = text.at[line, shown] if shown in text.columns else item.get(column)
-                failures[line][rule] = f"{shown}={None if pd.isna(value) else str(value)!r}"
+                helper = text.at[line, column] if column in _NAMES_A_FIELD else None
+                failures[line][rule] = _broken_field(column, helper, text, line, item.get(column))
 
     query = _PARSED_QUERY.format(
         columns=", ".join(f"cur.{c}" for c in LEDGER_COLUMNS),

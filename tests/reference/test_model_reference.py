@@ -189,8 +189,9 @@ def test_every_candidate_saves_and_reloads_with_the_trusted_types(tmp_path, log_
     # reloaded model must predict what it predicted before, to the last bits (skops docs: sio.dump / load).
     import skops.io as sio
 
+    from ledgerband.tasks.landing.contract import sha256_file
     from ledgerband.tasks.models import final_model
-    from ledgerband.tasks.train import file_sha256, load_model
+    from ledgerband.tasks.train import load_model
 
     rng = np.random.default_rng(9)
     s = Settings(train={"log_target": log_target})
@@ -202,7 +203,7 @@ def test_every_candidate_saves_and_reloads_with_the_trusted_types(tmp_path, log_
         model = final_model(pipe.fit(X, y))
         path = tmp_path / f"{name}.skops"
         sio.dump(model, path)
-        again = load_model(path, file_sha256(path))
+        again = load_model(path, sha256_file(path))
         np.testing.assert_allclose(again.predict(X), model.predict(X), rtol=1e-12)  # threads may reorder sums
         if log_target and name not in ("baseline_mean", "baseline_median"):
             assert (model.predict(X) > 0).all()  # back-transformed from the log scale
