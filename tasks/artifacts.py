@@ -13,7 +13,7 @@ def run_artifacts(ctx: RunContext, status: str, report: Path | None) -> None:
     """Create the run's artifacts (best effort: a run is never failed by its page decoration)."""
     from prefect.artifacts import create_markdown_artifact, create_table_artifact
 
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         rows = con.execute(
             "select gate, check_name, subject, decision, reason, figures from published.decisions "
             "where run_id = ? order by decided_at",

@@ -3,13 +3,16 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 
 import duckdb
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
 from ledgerband.tasks import loads
+from ledgerband.tasks.buckets import bucket_count, build_per_customer, run_here
 from ledgerband.tasks.business_calendar import write_business_calendar, write_pay_frequencies
+from ledgerband.tasks.cluster import on_cluster
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.warehouse import build_layers, open_warehouse
@@ -20,6 +23,8 @@ class FeatureBuild:
     """Row counts of every table the layers built (the grain is a rule of the feature suite)."""
 
     row_counts: dict[str, int]
+    buckets: int = 1  # per-customer files built on this many buckets of customers
+    slowest_bucket_seconds: float | None = None
 
 
 def check_window_loaded(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> None:
@@ -37,14 +42,29 @@ def check_window_loaded(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> None
 
 
 def build_features(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> FeatureBuild:
-    """Rebuild the reference tables from settings, then every layer table for the run's window."""
+    """Rebuild the reference tables from settings, then every layer table for the run's window.
+
+    The files built for all customers at once run in the warehouse; the per-customer files too when the
+    bank fits one bucket (scale.bucket_customers) and the runner is local, else per bucket
+    (ledgerband.tasks.buckets), one after another or on the flow's Dask cluster.
+    """
     check_window_loaded(con, ctx)
     write_pay_frequencies(con, ctx.settings)
     write_business_calendar(con, ctx.load_window, ctx.settings.payroll)
-    return FeatureBuild(build_layers(con, ctx.layer_params()))
+    params, scale = ctx.layer_params(), ctx.settings.scale
+    counts = build_layers(con, params, per_customer=False)
+    n = bucket_count(con, scale)
+    if scale.runner == "local" and n == 1:
+        counts |= build_layers(con, params, per_customer=True)
+        return FeatureBuild(counts, buckets=1)
+    root = Path(scale.shared_folder) if scale.shared_folder else ctx.settings.home / "buckets"
+    mapper = on_cluster if scale.runner == "dask" else run_here
+    built, results = build_per_customer(con, params, scale, root, ctx.run_id, n, mapper)
+    slowest = max(r.seconds for r in results)
+    return FeatureBuild(counts | built, buckets=n, slowest_bucket_seconds=slowest)
 
 
 @task(name="build-features", task_run_name="build-features-{ctx.period}", cache_policy=NO_CACHE)
 def build_features_task(ctx: RunContext) -> FeatureBuild:
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return build_features(con, ctx)

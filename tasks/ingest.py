@@ -221,7 +221,7 @@ def load_customers(con: duckdb.DuckDBPyConnection, ctx: RunContext, path: Path) 
 def find_extracts_task(ctx: RunContext) -> list[Path]:
     """Manifests of every month the run needs that is not yet accepted (a landing folder may be cleaned
     once its month is accepted)."""
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         accepted = loads.accepted_periods(con)
     return manifests_to_load(
         ctx.landing_dir, ctx.load_window, accepted, ctx.settings.quality.expected_sources
@@ -232,7 +232,7 @@ def find_extracts_task(ctx: RunContext) -> list[Path]:
 def ingest_extract_task(ctx: RunContext, manifest_path: Path) -> loads.LoadResult:
     """Load one extract named by its manifest (one file = one retryable unit)."""
     manifest = read_manifest(Path(manifest_path))
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return load_extract(con, ctx, manifest)
 
 
@@ -243,5 +243,5 @@ def ingest_extract_task(ctx: RunContext, manifest_path: Path) -> loads.LoadResul
     **IO_RETRIES,
 )
 def ingest_customers_task(ctx: RunContext) -> loads.LoadResult:
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return load_customers(con, ctx, ctx.customers_file)

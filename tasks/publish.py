@@ -294,7 +294,7 @@ def _sql_path(path: Path) -> str:
     **IO_RETRIES,
 )
 def publish_task(ctx: RunContext, train: TrainSummary) -> PublishResult:
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return publish_snapshot(con, ctx, train.model_version)
 
 
@@ -303,7 +303,7 @@ def parquet_task(ctx: RunContext) -> dict[str, int]:
     """The published month as Parquet by period (readers.parquet)."""
     if not ctx.settings.readers.parquet:
         return {}
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return write_parquet(con, ctx.settings.parquet_dir, str(ctx.period))
 
 
@@ -316,5 +316,5 @@ def parquet_task(ctx: RunContext) -> dict[str, int]:
 def refresh_reader_copy_task(ctx: RunContext) -> Path:
     """After every run that reached a decision: readers see the current snapshot and every decision,
     including a month that was withheld or stopped."""
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return export_reader_copy(con, ctx.settings.published_path)

@@ -237,5 +237,5 @@ def render_index(con: duckdb.DuckDBPyConnection, reports_dir: Path) -> str:
 
 @task(name="write-report", task_run_name="write-report-{ctx.period}", cache_policy=NO_CACHE, **IO_RETRIES)
 def report_task(ctx: RunContext) -> Path:
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return write_report(con, ctx)

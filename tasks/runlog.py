@@ -120,7 +120,7 @@ class RunLog:
         self._write(finished=True)
 
     def _write(self, create_schema: bool = False, finished: bool = False, mark_crashed: bool = False) -> None:
-        with open_warehouse(self.ctx.warehouse) as con:
+        with open_warehouse(self.ctx.warehouse, self.ctx.settings.scale) as con:
             if create_schema:
                 apply_schema(con)
             if mark_crashed:

@@ -264,6 +264,29 @@ class ReaderSettings(_Section):
     """Also write each published table as Parquet, partitioned by period (hive style)."""
 
 
+class ScaleSettings(_Section):
+    """How the heavy stages use the machine, or a Dask cluster past it."""
+
+    memory_limit: str = Field("2GB", pattern=r"^(\d+(\.\d+)?\s*(KB|MB|GB|TB|KiB|MiB|GiB|TiB)|)$")
+    """DuckDB's memory limit for the warehouse's work (it spills to disk beyond it); empty: DuckDB's own
+    default, 80% of the machine's memory. Measured at 100k customers x 4 months: see DEVELOPERS.md."""
+    threads: int = Field(0, ge=0)
+    """DuckDB's threads; 0: one per core."""
+    bucket_customers: int = Field(25_000, ge=100)
+    """The per-customer SQL layers (pay calendars, salary streams, features) run on buckets of about this
+    many customers each, split by a hash of customer_id: memory is bounded by a bucket, not the bank."""
+    runner: Literal["local", "dask"] = "local"
+    """local: buckets one after the other in this process. dask: buckets, and the models' CV splits, on a
+    Dask cluster through Prefect's Dask task runner."""
+    dask_address: str = ""
+    """A running Dask scheduler, e.g. "tcp://10.0.0.5:8786"; empty: a temporary local cluster."""
+    dask_workers: int = Field(2, ge=1)
+    """Worker processes of the temporary local cluster (one thread each); unused with dask_address."""
+    shared_folder: str = ""
+    """A folder every Dask worker can read and write at the same path (buckets are handed over as Parquet
+    there); empty: <state folder>/buckets, enough for a local cluster."""
+
+
 class ScheduleSettings(_Section):
     """The monthly deployment: when it runs, where, and how long a run may take."""
 
@@ -338,6 +361,7 @@ class Settings(BaseSettings):
     payroll: PayrollSettings = PayrollSettings()
     labels: LabelSettings = LabelSettings()
     readers: ReaderSettings = ReaderSettings()
+    scale: ScaleSettings = ScaleSettings()
     schedule: ScheduleSettings = ScheduleSettings()
     alerts: AlertSettings = AlertSettings()
     demo: DemoSettings = DemoSettings()

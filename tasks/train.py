@@ -492,5 +492,5 @@ def _save_model(pipe: Pipeline, folder: Path, card: dict) -> Path:
 @task(name="train-candidates", task_run_name="train-candidates-{ctx.period}", cache_policy=NO_CACHE)
 def train_task(ctx: RunContext) -> TrainSummary:
     """Fit and compare the candidates (never retried: training is deterministic)."""
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return train_and_predict(con, ctx)

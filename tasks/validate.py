@@ -593,12 +593,12 @@ def validate_features(con: duckdb.DuckDBPyConnection, suite_name: str = "custome
 @task(name="validate-extract", task_run_name="validate-extract-{load.source_file}", cache_policy=NO_CACHE)
 def validate_load_task(ctx: RunContext, load: loads.LoadResult) -> ValidationSummary:
     """Run the ledger suite on one load (never retried: validation is deterministic)."""
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return validate_load(con, load.load_id, ctx.settings)
 
 
 @task(name="validate-features", task_run_name="validate-features-{ctx.period}", cache_policy=NO_CACHE)
 def validate_features_task(ctx: RunContext) -> Decision:
     """Feature suite; a broken rule stops the run (recorded as a quality-gate decision)."""
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return enforce(con, ctx, validate_features(con))

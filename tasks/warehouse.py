@@ -26,21 +26,39 @@ import duckdb
 
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.faults import checkpoint
+from ledgerband.tasks.settings import ScaleSettings
 
 PACKAGE = "ledgerband.warehouse"
 # Layers built from SQL files by the feature stage, lowest first (published files are run by publish).
 BUILT_LAYERS = ("staging", "intermediate", "features")
 _READS = re.compile(r"^--\s*Reads:\s*(?P<names>[^\n]*)$", re.MULTILINE)
 _MATERIALIZED = re.compile(r"^--\s*Materialized:\s*(?P<kind>table|view)\b", re.MULTILINE)
+_PER_CUSTOMER = re.compile(r"^--\s*Scope:\s*per customer\b", re.MULTILINE)
 _TABLE_NAME = re.compile(r"\b([a-z_]+)\.([a-z_]+)\b")
 
 
-def connect(path: Path | str, read_only: bool = False) -> duckdb.DuckDBPyConnection:
-    """Open the warehouse with extension auto-install off (the machine is offline)."""
+def duckdb_limits(scale: ScaleSettings | None) -> dict[str, Any]:
+    """DuckDB configuration for scale.memory_limit and scale.threads (empty / 0: DuckDB's defaults)."""
+    config: dict[str, Any] = {}
+    if scale is not None and scale.memory_limit:
+        config["memory_limit"] = scale.memory_limit
+    if scale is not None and scale.threads:
+        config["threads"] = scale.threads
+    return config
+
+
+def connect(
+    path: Path | str, read_only: bool = False, scale: ScaleSettings | None = None
+) -> duckdb.DuckDBPyConnection:
+    """Open the warehouse with extension auto-install off (the machine is offline), within `scale`'s limits."""
     path = Path(path)
     if not read_only:
         path.parent.mkdir(parents=True, exist_ok=True)
-    config = {"autoinstall_known_extensions": False, "autoload_known_extensions": True}
+    config = {
+        "autoinstall_known_extensions": False,
+        "autoload_known_extensions": True,
+        **duckdb_limits(scale),
+    }
     try:
         return duckdb.connect(str(path), read_only=read_only, config=config)
     except duckdb.IOException as exc:
@@ -53,8 +71,10 @@ def connect(path: Path | str, read_only: bool = False) -> duckdb.DuckDBPyConnect
 
 
 @contextmanager
-def open_warehouse(path: Path | str) -> Iterator[duckdb.DuckDBPyConnection]:
-    con = connect(path)
+def open_warehouse(
+    path: Path | str, scale: ScaleSettings | None = None
+) -> Iterator[duckdb.DuckDBPyConnection]:
+    con = connect(path, scale=scale)
     try:
         yield con
     finally:
@@ -87,6 +107,7 @@ class SqlModel:
     query: str
     reads: tuple[str, ...]
     materialized: str  # 'table' | 'view'
+    per_customer: bool = False  # '-- Scope: per customer': a customer's rows need only that customer's rows
 
     @property
     def relation(self) -> str:
@@ -136,6 +157,7 @@ def sql_model(layer: str, name: str) -> SqlModel:
         query=text.strip().rstrip(";"),
         reads=reads,
         materialized=kind.group("kind") if kind else "table",
+        per_customer=bool(_PER_CUSTOMER.search(text)),
     )
 
 
@@ -164,10 +186,18 @@ def apply_schema(con: duckdb.DuckDBPyConnection) -> None:
             model.build(con)
 
 
-def build_layers(con: duckdb.DuckDBPyConnection, params: Mapping[str, Any]) -> dict[str, int]:
-    """Rebuild every table of the built layers in dependency order; returns row counts per table."""
+def build_layers(
+    con: duckdb.DuckDBPyConnection, params: Mapping[str, Any], per_customer: bool | None = None
+) -> dict[str, int]:
+    """Rebuild the tables of the built layers in dependency order; returns row counts per table.
+
+    per_customer None: every file; False: only the files built for all customers at once; True: only the
+    per-customer files (ledgerband.tasks.buckets runs those per bucket of customers).
+    """
     counts = {}
     for model in layer_models():
+        if per_customer is not None and model.per_customer != per_customer:
+            continue
         if model.layer == "intermediate":
             checkpoint("mid_features")
         model.build(con, params)

@@ -119,7 +119,7 @@ def shift_decision(train: TrainSummary, settings: Settings) -> Decision:
 @task(name="accuracy-gate", task_run_name="accuracy-gate-{ctx.period}", cache_policy=NO_CACHE)
 def accuracy_gate_task(ctx: RunContext, train: TrainSummary) -> Decision:
     """Decide whether the champion's estimates may be published (never retried)."""
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         if train.champion is not None:
             enforce(con, ctx, shift_decision(train, ctx.settings))
         return enforce(con, ctx, accuracy_gate(train, ctx.settings))

@@ -238,7 +238,7 @@ def check_drift(con, ctx: RunContext) -> Decision:
 @task(name="drift-gate", task_run_name="drift-gate-{ctx.period}", cache_policy=NO_CACHE)
 def drift_gate_task(ctx: RunContext) -> Decision:
     """Decide whether the month moved too far from the last published one (never retried)."""
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return enforce(con, ctx, check_drift(con, ctx))
 
 

@@ -152,5 +152,5 @@ def label_gate(stats: LabelStats, limits: LabelSettings) -> Decision:
 @task(name="label-gate", task_run_name="label-gate-{ctx.period}", cache_policy=NO_CACHE)
 def label_gate_task(ctx: RunContext) -> Decision:
     """Judge the run's labels (never retried)."""
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return enforce(con, ctx, label_gate(label_stats(con, ctx), ctx.settings.labels))

@@ -62,7 +62,7 @@ def quality_gate_task(ctx: RunContext, validations: list[ValidationSummary]) -> 
     decision = quality_gate(validations, ctx.settings)
     load_ids = [v.load_id for v in validations]
     reason = "passed the quality gate" if decision.passed else decision.reason
-    with open_warehouse(ctx.warehouse) as con:
+    with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
         return enforce(
             con, ctx, decision, alongside=lambda c: loads.settle(c, load_ids, decision.passed, reason)
         )

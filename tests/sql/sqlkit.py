@@ -128,6 +128,8 @@ def build_salary(con, window: dict = WINDOW, **payroll) -> None:
         "pensions_observed": settings.payroll.pensions_observed,
     }
     for layer, name in (
+        ("intermediate", "received_credits"),
+        ("intermediate", "payers"),
         ("intermediate", "payroll_credits"),
         ("intermediate", "pay_calendars"),
         ("intermediate", "pay_calendar_matches"),

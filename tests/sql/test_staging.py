@@ -45,17 +45,14 @@ def test_payroll_is_recognised_by_purpose_or_sub_family(con, ledger):
     )  # paying staff
     ledger.add("C1", date(2026, 10, 5), 5.0, "CRDT", bank_txn_code="PMNT/RCDT/DMCT")  # no purpose code
     ledger.load()
-    run_sql_file(
-        con,
-        "intermediate",
-        "payroll_credits",
-        {
-            **WINDOW,
-            "salary_window_start": WINDOW["window_start"],
-            "min_payer_customers": 3,
-            "pensions_observed": True,
-        },
-    )
+    params = {
+        **WINDOW,
+        "salary_window_start": WINDOW["window_start"],
+        "min_payer_customers": 3,
+        "pensions_observed": True,
+    }
+    for name in ("received_credits", "payers", "payroll_credits"):
+        run_sql_file(con, "intermediate", name, params)
     got = con.execute(
         "select amount::double, income_kind from intermediate.payroll_credits order by amount"
     ).fetchall()

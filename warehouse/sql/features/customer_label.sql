@@ -1,6 +1,7 @@
 -- features.customer_label
 -- Grain: one row per customer in the current reference file. Key: customer_id.
 -- Reads: staging.customers, intermediate.salary_streams.
+-- Scope: per customer (built per bucket of customers).
 -- Whether the customer's salary can be read from the pay credits here, and why not when it cannot:
 --   labelled     every current stream is classified; several employers add up
 --   irregular    a current stream follows no pay calendar (no partial labels: the model estimates them)

@@ -1,6 +1,7 @@
 -- features.customer_salary
 -- Grain: one row per customer with a salary label (the model's target). Key: customer_id.
 -- Reads: features.customer_label.
+-- Scope: per customer (built per bucket of customers).
 -- The labelled customers of features.customer_label, with what the model learns from: annual net pay
 -- received here (after tax and deductions, excluding bonuses).
 

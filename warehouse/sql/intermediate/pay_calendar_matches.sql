@@ -2,6 +2,7 @@
 -- Grain: one row per pay credit and pay calendar slot it can be the payment of.
 -- Key: customer_id, payer_id, booking_date, pattern, pattern_param, slot.
 -- Reads: intermediate.payroll_credits, intermediate.pay_calendars.
+-- Scope: per customer (built per bucket of customers).
 -- Only streams of two or more payments, and only the calendar families their mean gap allows.
 -- recency: 1 for the latest credit a calendar matches in the stream, 2 for the one before, …
 -- Materialized as a table so that intermediate.pay_schedule_fits aggregates a plain table (at 100k

@@ -2,7 +2,8 @@
 -- Grain: one row per (customer_id, payer_id, pattern, pattern_param): a pay calendar that explains at
 -- least two of a stream's payments one to one. Key: those four.
 -- Reads: intermediate.payroll_credits, intermediate.pay_calendar_matches, intermediate.pay_calendars,
--- ref.pay_frequencies.
+-- ref.business_calendar, ref.pay_frequencies.
+-- Scope: per customer (built per bucket of customers).
 -- Parameters: $max_missed_runs.
 -- A pay calendar names the nominal pay days; pay due on a weekend or holiday lands on the business day
 -- before or after it (ref.business_calendar), the same way every time for one employer. Calendars tried,

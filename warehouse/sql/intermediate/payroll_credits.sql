@@ -1,14 +1,14 @@
 -- intermediate.payroll_credits
 -- Grain: one row per (customer_id, payer_id, booking_date) of pay or pension credits. Key: those three.
--- Reads: staging.transactions.
--- Parameters: $salary_window_start, $window_end (dates, inclusive), $min_payer_customers,
--- $pensions_observed.
--- A credit is pay when the payer coded it as salary (ISO 20022 purpose SALA, or bank transaction
--- sub-family SALA: is_coded), or when it is an uncoded received credit transfer from a payer that is an
--- employer: one that codes salary to someone in the window, or that sends such uncoded transfers to at
--- least $min_payer_customers customers (a lodger, a relative or the customer's own account elsewhere pays
--- one customer). Not pay: anything with another purpose code (pension, benefit, interest, rent, refund…),
--- card and cash credits, internal book transfers, and transfers from the customer's own accounts here.
+-- Reads: intermediate.received_credits, intermediate.payers.
+-- Parameters: $min_payer_customers, $pensions_observed.
+-- Scope: per customer (built per bucket of customers; intermediate.payers is handed whole).
+-- A credit (intermediate.received_credits) is pay when the payer coded it as salary (is_coded), or when
+-- it is an uncoded received credit transfer from a payer that is an employer: one that codes salary to
+-- someone in the window, or that sends such uncoded transfers to at least $min_payer_customers customers
+-- (a lodger, a relative or the customer's own account elsewhere pays one customer). Not pay: anything
+-- with another purpose code (pension, benefit, interest, rent, refund…), card and cash credits, internal
+-- book transfers, and transfers from the customer's own accounts here.
 -- Whether uncoded pay arrives on a schedule is decided by intermediate.salary_streams.
 -- Pensions (purpose PENS) are read the same way, as their own streams (income_kind 'pension', payer_id
 -- prefixed 'pension:'), when $pensions_observed: published as observed income, never a salary label.
@@ -17,54 +17,12 @@
 
 with
 
-transactions as (
-    select *
-    from staging.transactions
-    where booking_date between $salary_window_start and $window_end
-),
-
-own_accounts as (
-    select distinct
-        customer_id,
-        account_id
-    from staging.transactions
-),
-
 credits as (
-    select
-        transactions.customer_id,
-        transactions.counterparty_id,
-        transactions.booking_date,
-        transactions.amount,
-        -- a purpose code says what the payer meant; the sub-family only counts when there is none (a
-        -- pension sent with sub-family SALA is a pension)
-        coalesce(
-            transactions.purpose_code = 'SALA'
-            or (transactions.purpose_code is null and transactions.btc_subfamily = 'SALA'),
-            false
-        ) as is_coded,
-        coalesce(transactions.purpose_code = 'PENS', false) as is_pension,
-        transactions.purpose_code is null
-        and transactions.btc_family = 'RCDT'
-        and transactions.btc_subfamily <> 'BOOK'
-        and transactions.counterparty_id is not null
-        and own_accounts.account_id is null as is_uncoded_transfer
-    from transactions
-    left join own_accounts
-        on
-            own_accounts.customer_id = transactions.customer_id
-            and own_accounts.account_id = transactions.counterparty_id
-    where transactions.direction = 'CRDT'
+    select * from intermediate.received_credits
 ),
 
 payers as (
-    select
-        counterparty_id,
-        bool_or(is_coded) as codes_salary,
-        count(distinct customer_id) filter (where is_uncoded_transfer) as uncoded_customer_count
-    from credits
-    where counterparty_id is not null
-    group by counterparty_id
+    select * from intermediate.payers
 ),
 
 pay as (

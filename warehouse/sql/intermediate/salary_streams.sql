@@ -2,6 +2,7 @@
 -- Grain: one row per (customer_id, payer_id) stream of pay credits inside the window.
 -- Key: customer_id, payer_id.
 -- Reads: intermediate.payroll_credits, intermediate.pay_schedule_fits.
+-- Scope: per customer (built per bucket of customers).
 -- Parameters: $window_end (date, inclusive), $due_grace_days, $max_last_pay_change.
 -- Each stream takes the pay calendar that explains its payments best: fewest missed runs plus extras,
 -- then a steady amount over the explained payments, then fewest payments moved off their nominal day.

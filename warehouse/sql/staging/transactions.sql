@@ -30,6 +30,28 @@ kept as (
         on q.load_id = lines.load_id and q.source_line = lines.source_line
 ),
 
+repeated as (
+    -- txn_ids booked more than once (validation quarantines a repeat, so this is a guard): only their
+    -- records are ranked, rather than every record of every load
+    select kept.txn_id
+    from kept
+    group by kept.txn_id
+    having count(*) > 1
+),
+
+first_bookings as (
+    select kept.*
+    from kept
+    anti join repeated on repeated.txn_id is not distinct from kept.txn_id
+    union all
+    select kept.*
+    from kept
+    semi join repeated on repeated.txn_id is not distinct from kept.txn_id
+    qualify
+        row_number() over (partition by kept.txn_id order by kept.loaded_at, kept.load_id, kept.source_line)
+        = 1
+),
+
 final as (
     select
         txn_id,
@@ -51,8 +73,7 @@ final as (
         load_id,
         source_file,
         source_line
-    from kept
-    qualify row_number() over (partition by txn_id order by loaded_at, load_id, source_line) = 1
+    from first_bookings
 )
 
 select * from final
