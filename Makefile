@@ -5,7 +5,7 @@ BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed-$(shell cat pyproject.toml | sha256sum | cut -c1-16)
 
 .DEFAULT_GOAL := help
-.PHONY: help venv demo test test-all test-crash bench lint format clean browser
+.PHONY: help venv demo test test-all test-crash test-scale bench lint format clean browser
 
 help: ## list the targets
 	@grep -E '^[a-z-]+:.*## ' $(MAKEFILE_LIST) | awk -F':.*## ' '{printf "  make %-10s %s\n", $$1, $$2}'
@@ -34,6 +34,9 @@ test: venv ## lint, then run the default test suite (unit, sql, reference, integ
 
 test-crash: venv ## kill runs at each stage boundary and rerun them (~8 min; CI runs it after make test)
 	$(BIN)/python -m pytest tests/crash -m crash
+
+test-scale: venv ## the month on buckets and on a local 2-worker Dask cluster, equal to one build (~4 min; CI runs it)
+	$(BIN)/python -m pytest tests/scale -m scale
 
 bench: venv ## benchmark the monthly flow at 10k and 100k customers beside plain DuckDB (BENCH_SIZES, BENCH_MONTHS)
 	$(BIN)/python -m pytest tests/bench -m bench -s -p no:cacheprovider

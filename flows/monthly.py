@@ -12,6 +12,7 @@ from prefect.runtime import flow_run
 
 from ledgerband.tasks.alerts import alert_owners_hook
 from ledgerband.tasks.artifacts import run_artifacts
+from ledgerband.tasks.cluster import run_cluster
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import GateStopped
 from ledgerband.tasks.faults import checkpoint
@@ -96,7 +97,7 @@ def monthly_run(period: str | None = None, landing_dir: Path | None = None) -> R
         period = str(period_for_scheduled(flow_run.scheduled_start_time, get_settings().schedule.timezone))
     ctx = RunContext.create(period, landing_dir, run_id=str(flow_run.id or uuid.uuid4()))
     # One run at a time per state folder: a second one is refused before it touches anything.
-    with run_lock(ctx.settings.home, str(ctx.period)):
+    with run_lock(ctx.settings.home, str(ctx.period)), run_cluster(ctx.settings.scale):
         return _run(ctx)
 
 
@@ -106,7 +107,19 @@ def _run(ctx: RunContext) -> RunResult:
         loaded = log.run("ingest", ingest, ctx, detail=lambda r: {x.source_file: x.status for x in r})
         checkpoint("after_load")
         quality = log.run("validate", validate, ctx, loaded, detail=lambda d: d.reason)
-        log.run("features", features, ctx, detail=lambda b: b.row_counts)
+        log.run(
+            "features",
+            features,
+            ctx,
+            detail=lambda b: (
+                {
+                    "staging": b.staged,
+                    "buckets": b.buckets,
+                    "slowest_bucket_seconds": b.slowest_bucket_seconds,
+                }
+                | b.row_counts
+            ),
+        )
         log.run("label_gate", label_gate_task, ctx, detail=lambda d: d.reason)
         train = log.run(
             "train", train_task, ctx, detail=lambda t: {"champion": t.champion, "n_labelled": t.n_labelled}

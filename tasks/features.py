@@ -15,6 +15,8 @@ from ledgerband.tasks.business_calendar import write_business_calendar, write_pa
 from ledgerband.tasks.cluster import on_cluster
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.staging import TABLE as TRANSACTIONS
+from ledgerband.tasks.staging import refresh_transactions
 from ledgerband.tasks.warehouse import build_layers, open_warehouse
 
 
@@ -23,6 +25,7 @@ class FeatureBuild:
     """Row counts of every table the layers built (the grain is a rule of the feature suite)."""
 
     row_counts: dict[str, int]
+    staged: str = "rebuilt"  # what staging.transactions needed: 'appended N', 'unchanged' or 'rebuilt'
     buckets: int = 1  # per-customer files built on this many buckets of customers
     slowest_bucket_seconds: float | None = None
 
@@ -44,7 +47,8 @@ def check_window_loaded(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> None
 def build_features(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> FeatureBuild:
     """Rebuild the reference tables from settings, then every layer table for the run's window.
 
-    The files built for all customers at once run in the warehouse; the per-customer files too when the
+    staging.transactions gets the new loads appended, or is rebuilt when the history changed
+    (ledgerband.tasks.staging). The files built for all customers at once run in the warehouse; the per-customer files too when the
     bank fits one bucket (scale.bucket_customers) and the runner is local, else per bucket
     (ledgerband.tasks.buckets), one after another or on the flow's Dask cluster.
     """
@@ -52,16 +56,17 @@ def build_features(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> FeatureBu
     write_pay_frequencies(con, ctx.settings)
     write_business_calendar(con, ctx.load_window, ctx.settings.payroll)
     params, scale = ctx.layer_params(), ctx.settings.scale
-    counts = build_layers(con, params, per_customer=False)
+    staged = refresh_transactions(con)
+    counts = build_layers(con, params, per_customer=False, kept=frozenset({TRANSACTIONS}))
     n = bucket_count(con, scale)
     if scale.runner == "local" and n == 1:
         counts |= build_layers(con, params, per_customer=True)
-        return FeatureBuild(counts, buckets=1)
+        return FeatureBuild(counts, staged=staged)
     root = Path(scale.shared_folder) if scale.shared_folder else ctx.settings.home / "buckets"
     mapper = on_cluster if scale.runner == "dask" else run_here
     built, results = build_per_customer(con, params, scale, root, ctx.run_id, n, mapper)
     slowest = max(r.seconds for r in results)
-    return FeatureBuild(counts | built, buckets=n, slowest_bucket_seconds=slowest)
+    return FeatureBuild(counts | built, staged=staged, buckets=n, slowest_bucket_seconds=slowest)
 
 
 @task(name="build-features", task_run_name="build-features-{ctx.period}", cache_policy=NO_CACHE)

@@ -196,45 +196,77 @@ def _shared_preparation(candidates: dict) -> ColumnTransformer | None:
     return first if same else None
 
 
+@dataclass(frozen=True)
+class SplitJob:
+    """One split's work, picklable (it may run on a Dask worker): fit every candidate, score the test fold."""
+
+    X: pd.DataFrame
+    y: np.ndarray
+    train: np.ndarray
+    test: np.ndarray
+    candidates: dict
+    shared: ColumnTransformer | None
+    edges: tuple[float, ...]
+
+
+def score_split(job: SplitJob) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """Per candidate: (rmse, mae, band accuracy, within one band) on the split's test fold, and its estimates."""
+    y, train, test = job.y, job.train, job.test
+    X_train, X_test = job.X.iloc[train], job.X.iloc[test]
+    if job.shared is not None:
+        prepare = clone(job.shared).fit(X_train)
+        X_train, X_test = prepare.transform(X_train), prepare.transform(X_test)
+    true_band = assign_band_index(y[test], job.edges)
+    out = {}
+    for name, pipe in job.candidates.items():
+        model = clone(pipe.named_steps["model"] if job.shared is not None else pipe)
+        pred = np.clip(model.fit(X_train, y[train]).predict(X_test), 0, None)  # incomes are never negative
+        pred_band = assign_band_index(pred, job.edges)
+        figures = np.array(
+            [
+                root_mean_squared_error(y[test], pred),
+                mean_absolute_error(y[test], pred),
+                np.mean(pred_band == true_band),
+                np.mean(np.abs(pred_band - true_band) <= 1),
+            ]
+        )
+        out[name] = (figures, pred)
+    return out
+
+
+def _one_after_another(fn, jobs: list) -> list:
+    return [fn(job) for job in jobs]
+
+
 def compare(
     X: pd.DataFrame,
     y: np.ndarray,
     settings: Settings,
     candidates: dict[str, BaseEstimator] | None = None,
+    mapper=None,
 ) -> Comparison:
     """Fit and score every candidate on the same repeated k-fold splits.
 
     When every candidate is a `prepare` + `model` Pipeline with the same preparation (as made by
     `make_candidates`), the preparation is fitted once per split and each model on its output: the same
     result as fitting each Pipeline, without repeating the one-hot encoding and imputation per model.
+    `mapper(fn, jobs)` runs the splits (default: one after another here; the Dask runner maps them onto
+    its cluster); every split is independent and seeded, so where it runs does not change its result.
     """
     t, edges = settings.train, settings.bands.edges
     y = np.asarray(y, dtype=float)
     candidates = candidates if candidates is not None else make_candidates(settings)
     splits = cv_splits(len(y), t)
-    true_band = assign_band_index(y, edges)
     shared = _shared_preparation(candidates)
     n_splits = len(splits)
+    jobs = [SplitJob(X, y, train, test, candidates, shared, tuple(edges)) for train, test in splits]
+    done = (mapper or _one_after_another)(score_split, jobs)
     scores = {name: np.empty((4, n_splits)) for name in candidates}  # rmse, mae, band acc, within one
     oof = {name: np.full((t.cv_repeats, len(y)), np.nan) for name in candidates}
-    for i, (train, test) in enumerate(splits):
-        X_train, X_test = X.iloc[train], X.iloc[test]
-        if shared is not None:
-            prepare = clone(shared).fit(X_train)
-            X_train, X_test = prepare.transform(X_train), prepare.transform(X_test)
-        for name, pipe in candidates.items():
-            model = clone(pipe.named_steps["model"] if shared is not None else pipe)
-            pred = np.clip(
-                model.fit(X_train, y[train]).predict(X_test), 0, None
-            )  # incomes are never negative
+    for i, ((_, test), result) in enumerate(zip(splits, done, strict=True)):
+        for name, (figures, pred) in result.items():
+            scores[name][:, i] = figures
             oof[name][i // t.cv_folds, test] = pred
-            pred_band = assign_band_index(pred, edges)
-            scores[name][:, i] = (
-                root_mean_squared_error(y[test], pred),
-                mean_absolute_error(y[test], pred),
-                np.mean(pred_band == true_band[test]),
-                np.mean(np.abs(pred_band - true_band[test]) <= 1),
-            )
     results = {name: CandidateResult(name, *scores[name], oof[name]) for name in candidates}
     return Comparison(results, splits, t.cv_folds, t.cv_repeats)
 

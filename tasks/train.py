@@ -23,6 +23,7 @@ from sklearn.pipeline import Pipeline
 
 from ledgerband.tasks.assess import LearningCurve, group_errors, learning_curve_of, population_shift
 from ledgerband.tasks.bands import assign_band_index, income_to_publish
+from ledgerband.tasks.cluster import on_cluster
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import ModelFileRefused
 from ledgerband.tasks.gates.drift import profile
@@ -95,7 +96,9 @@ def evaluate(
     sample = comparison_sample(y, edges, t.max_cv_customers, t.random_state)
     Xs, ys = X.iloc[sample], y[sample]
     candidates = candidates if candidates is not None else make_candidates(settings)
-    comparison = compare(Xs, ys, settings, candidates)
+    # With scale.runner "dask" the CV splits run on the run's Dask cluster (ledgerband.tasks.cluster).
+    mapper = on_cluster if settings.scale.runner == "dask" else None
+    comparison = compare(Xs, ys, settings, candidates, mapper=mapper)
     sk = skill(comparison, a.confidence)
     pipe = candidates[comparison.champion]
     first_repeat = comparison.splits[: comparison.folds]

@@ -187,12 +187,16 @@ def apply_schema(con: duckdb.DuckDBPyConnection) -> None:
 
 
 def build_layers(
-    con: duckdb.DuckDBPyConnection, params: Mapping[str, Any], per_customer: bool | None = None
+    con: duckdb.DuckDBPyConnection,
+    params: Mapping[str, Any],
+    per_customer: bool | None = None,
+    kept: frozenset[str] = frozenset(),
 ) -> dict[str, int]:
     """Rebuild the tables of the built layers in dependency order; returns row counts per table.
 
     per_customer None: every file; False: only the files built for all customers at once; True: only the
-    per-customer files (ledgerband.tasks.buckets runs those per bucket of customers).
+    per-customer files (ledgerband.tasks.buckets runs those per bucket of customers). Tables in `kept`
+    are brought up to date by their owner, not rebuilt here (their row counts are still returned).
     """
     counts = {}
     for model in layer_models():
@@ -200,7 +204,8 @@ def build_layers(
             continue
         if model.layer == "intermediate":
             checkpoint("mid_features")
-        model.build(con, params)
+        if model.relation not in kept:
+            model.build(con, params)
         if model.materialized == "table":
             counts[model.relation] = int(scalar(con, f"select count(*)::bigint from {model.relation}"))
     return counts

@@ -1,0 +1,143 @@
+"""The same month, three ways: one warehouse build, buckets one after another, buckets on Dask.
+
+The per-customer SQL files run per bucket of customers (ledgerband.tasks.buckets); with
+`scale.runner = "dask"` the buckets and the models' CV splits run on a local Dask cluster of two worker
+processes on 127.0.0.1, started by Prefect's Dask task runner. Every table the layers build and every
+table readers get must be the same as the single-machine, single-bucket run's.
+
+Marked `scale` (about 4 minutes): `make test-scale`; CI runs it after the default suite.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import duckdb
+import pytest
+
+from ledgerband.tasks.buckets import per_customer_models
+from ledgerband.tasks.publish import READER_TABLES
+from ledgerband.tasks.settings import Settings
+
+pytestmark = pytest.mark.scale
+
+PERIOD = "2026-10"
+CUSTOMERS = 600
+# A small bank and a quick model comparison: what is under test is where the work runs, not accuracy.
+CONFIG = """
+[accuracy]
+min_labelled_customers = 50
+min_mae_skill = 0.0
+min_band_skill = 0.0
+coverage_tolerance = 0.5
+[train]
+candidates = ["linear_regression", "decision_tree"]
+cv_folds = 3
+cv_repeats = 2
+"""
+# Columns that name the run that wrote a row, or when.
+VOLATILE = ("run_id", "snapshot_id", "model_version")
+
+
+@pytest.fixture(scope="module")
+def landing(tmp_path_factory):
+    from ledgerband.tasks.demo.generator import generate
+
+    root = tmp_path_factory.mktemp("scale-landing")
+    files = generate(root / "landing", root / "answers.parquet", customers=CUSTOMERS, months=4, seed=11)
+    (root / "ledgerband.toml").write_text(CONFIG)
+    return files.landing_dir
+
+
+def _run(home: Path, landing: Path, **scale: str) -> subprocess.CompletedProcess:
+    env = {k: v for k, v in os.environ.items() if not k.startswith(("PREFECT_API_URL", "LEDGERBAND_"))}
+    env.update(
+        LEDGERBAND_HOME=str(home),
+        LEDGERBAND_CONFIG=str(landing.parent / "ledgerband.toml"),
+        PREFECT_HOME=str(home / "prefect"),
+        **{f"LEDGERBAND_SCALE__{k.upper()}": v for k, v in scale.items()},
+    )
+    home.mkdir(parents=True)
+    command = [
+        sys.executable,
+        "-m",
+        "ledgerband.flows.cli",
+        "run",
+        "--period",
+        PERIOD,
+        "--landing",
+        str(landing),
+    ]
+    log = home.parent / f"{home.name}.log"
+    with log.open("w") as out:
+        done = subprocess.run(command, env=env, stdout=out, stderr=subprocess.STDOUT, timeout=900)
+    assert done.returncode == 0, log.read_text()[-4000:]
+    return done
+
+
+def _reader_tables(home: Path) -> dict[str, list[tuple]]:
+    con = duckdb.connect(str(Settings(home=home).published_path), read_only=True)
+    try:
+        out = {}
+        for name in READER_TABLES:
+            if name in ("decisions", "snapshots"):
+                continue  # one row per run, naming it
+            columns = [
+                c
+                for (c,) in con.execute(
+                    "select column_name from information_schema.columns where table_name = ? "
+                    "order by ordinal_position",
+                    [name],
+                ).fetchall()
+                if c not in VOLATILE and not c.endswith("_at")
+            ]
+            listed = ", ".join(f'"{c}"' for c in columns)
+            out[name] = con.execute(f"select {listed} from {name} order by all").fetchall()
+        return out
+    finally:
+        con.close()
+
+
+def _built_tables(home: Path) -> dict[str, list[tuple]]:
+    con = duckdb.connect(str(Settings(home=home).warehouse_path), read_only=True)
+    try:
+        return {
+            m.relation: con.execute(f"select * from {m.relation} order by all").fetchall()
+            for m in per_customer_models()
+        }
+    finally:
+        con.close()
+
+
+def _buckets(home: Path) -> int:
+    """How many buckets the run's feature stage used (from its ops.runs record)."""
+    con = duckdb.connect(str(Settings(home=home).warehouse_path), read_only=True)
+    try:
+        stages = con.execute("select stages from ops.runs order by started_at desc limit 1").fetchone()[0]
+    finally:
+        con.close()
+    stages = json.loads(stages) if isinstance(stages, str) else stages
+    features = next(s for s in stages if s["stage"] == "features")
+    detail = json.loads(features["detail"]) if isinstance(features["detail"], str) else features["detail"]
+    return int(detail["buckets"])
+
+
+def test_buckets_and_dask_publish_what_one_machine_does(tmp_path, landing):
+    _run(tmp_path / "whole", landing)
+    _run(tmp_path / "buckets", landing, bucket_customers="150")
+    _run(tmp_path / "dask", landing, bucket_customers="150", runner="dask", dask_workers="2")
+
+    assert [_buckets(tmp_path / h) for h in ("whole", "buckets", "dask")] == [1, 4, 4]
+    whole_built, whole_read = _built_tables(tmp_path / "whole"), _reader_tables(tmp_path / "whole")
+    assert whole_built["features.customer_label"], "the month built no labels: nothing would be compared"
+    assert whole_read["income_bands"], "the month published no bands: nothing would be compared"
+    for other in ("buckets", "dask"):
+        built, read = _built_tables(tmp_path / other), _reader_tables(tmp_path / other)
+        for relation, rows in whole_built.items():
+            assert built[relation] == rows, f"{other}: {relation} differs from the single build"
+        for table, rows in whole_read.items():
+            assert read[table] == rows, f"{other}: published {table} differs from the single-machine run"
