@@ -48,9 +48,10 @@ def build_features(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> FeatureBu
     """Rebuild the reference tables from settings, then every layer table for the run's window.
 
     staging.transactions gets the new loads appended, or is rebuilt when the history changed
-    (ledgerband.tasks.staging). The files built for all customers at once run in the warehouse; the per-customer files too when the
-    bank fits one bucket (scale.bucket_customers) and the runner is local, else per bucket
-    (ledgerband.tasks.buckets), one after another or on the flow's Dask cluster.
+    (ledgerband.tasks.staging). The files built for all customers at once run in the warehouse. The
+    per-customer files do too when the bank fits one bucket (scale.bucket_customers) and the runner is
+    local; else they run per bucket (ledgerband.tasks.buckets), one after another or on the run's Dask
+    cluster.
     """
     check_window_loaded(con, ctx)
     write_pay_frequencies(con, ctx.settings)
