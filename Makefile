@@ -35,7 +35,7 @@ test: venv ## lint, then run the default test suite (unit, sql, reference, integ
 test-crash: venv ## kill runs at each stage boundary and rerun them (~8 min; CI runs it after make test)
 	$(BIN)/python -m pytest tests/crash -m crash
 
-test-scale: venv ## the month on buckets and on a local 2-worker Dask cluster, equal to one build (~4 min; CI runs it)
+test-scale: venv ## the month on buckets and on a local 2-worker Dask cluster, equal to one build (~3 min; CI runs it)
 	$(BIN)/python -m pytest tests/scale -m scale
 
 bench: venv ## benchmark the monthly flow at 10k and 100k customers beside plain DuckDB (BENCH_SIZES, BENCH_MONTHS)

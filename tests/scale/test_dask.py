@@ -5,7 +5,7 @@ The per-customer SQL files run per bucket of customers (ledgerband.tasks.buckets
 processes on 127.0.0.1, started by Prefect's Dask task runner. Every table the layers build and every
 table readers get must be the same as the single-machine, single-bucket run's.
 
-Marked `scale` (about 4 minutes): `make test-scale`; CI runs it after the default suite.
+Marked `scale` (about 3 minutes): `make test-scale`; CI runs it after the default suite.
 """
 
 from __future__ import annotations
