@@ -28,12 +28,7 @@ import duckdb
 
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.settings import ScaleSettings
-from ledgerband.tasks.warehouse import SqlModel, duckdb_limits, layer_models, scalar
-
-
-def _literal(path: str | Path) -> str:
-    """A path as a SQL string literal (single quotes doubled): the shared folder comes from settings."""
-    return "'" + str(path).replace("'", "''") + "'"
+from ledgerband.tasks.warehouse import SqlModel, columns_of, duckdb_limits, layer_models, scalar, sql_literal
 
 
 def per_customer_models() -> list[SqlModel]:
@@ -52,18 +47,6 @@ def bucket_count(con: duckdb.DuckDBPyConnection, scale: ScaleSettings) -> int:
     return max(1, math.ceil(customers / scale.bucket_customers))
 
 
-def _has_customer_id(con: duckdb.DuckDBPyConnection, relation: str) -> bool:
-    schema, table = relation.split(".")
-    return bool(
-        scalar(
-            con,
-            "select count(*) from duckdb_columns() where database_name = current_database() "
-            "and schema_name = ? and table_name = ? and column_name = 'customer_id'",
-            [schema, table],
-        )
-    )
-
-
 # The bucket of a customer: DuckDB's hash of the id (the same on every machine of one DuckDB version; a
 # different split between versions changes which bucket a customer is built in, never the result).
 BUCKET_OF = "coalesce(hash(customer_id) % {n}, 0)"
@@ -76,18 +59,18 @@ def write_inputs(
     split = {}
     (folder / "in").mkdir(parents=True, exist_ok=True)
     for relation in inputs:
-        split[relation] = _has_customer_id(con, relation)
+        split[relation] = "customer_id" in columns_of(con, relation)
         target = folder / "in" / relation
         # The empty file keeps the columns for a bucket with no rows (the hive split writes no folder then).
-        columns = _literal(f"{target}.columns.parquet")
+        columns = sql_literal(f"{target}.columns.parquet")
         con.execute(f"copy (select * from {relation} limit 0) to {columns} (format parquet)")
         if split[relation]:
             con.execute(
                 f"copy (select *, {BUCKET_OF.format(n=int(n))} as bucket from {relation}) "
-                f"to {_literal(target)} (format parquet, partition_by (bucket), overwrite_or_ignore true)"
+                f"to {sql_literal(target)} (format parquet, partition_by (bucket), overwrite_or_ignore true)"
             )
         else:
-            con.execute(f"copy {relation} to {_literal(f'{target}.parquet')} (format parquet)")
+            con.execute(f"copy {relation} to {sql_literal(f'{target}.parquet')} (format parquet)")
     return split
 
 
@@ -125,17 +108,17 @@ def build_bucket(job: BucketJob) -> BucketResult:
             source = folder / "in" / relation
             part = source / f"bucket={job.bucket}"
             if not is_split:
-                files = _literal(f"{source}.parquet")
+                files = sql_literal(f"{source}.parquet")
             elif part.is_dir():
-                files = _literal(f"{part}/*.parquet")
+                files = sql_literal(f"{part}/*.parquet")
             else:
-                files = _literal(f"{source}.columns.parquet")
+                files = sql_literal(f"{source}.columns.parquet")
             con.execute(f"create table {relation} as select * from read_parquet({files})")
         counts = {}
         for model in per_customer_models():
             con.execute(f"create schema if not exists {model.layer}")
             model.build(con, job.params)
-            target = _literal(f"{out / model.relation}.parquet")
+            target = sql_literal(f"{out / model.relation}.parquet")
             con.execute(f"copy {model.relation} to {target} (format parquet)")
             counts[model.relation] = int(scalar(con, f"select count(*) from {model.relation}"))
         return BucketResult(job.bucket, counts, round(time.perf_counter() - started, 3))
@@ -148,7 +131,9 @@ def collect(con: duckdb.DuckDBPyConnection, folder: Path, n: int) -> dict[str, i
     """Each per-customer table in the warehouse as the union of its buckets' files."""
     counts = {}
     for model in per_customer_models():
-        files = ", ".join(_literal(f"{folder / 'out' / str(b) / model.relation}.parquet") for b in range(n))
+        files = ", ".join(
+            sql_literal(f"{folder / 'out' / str(b) / model.relation}.parquet") for b in range(n)
+        )
         con.execute(f"create or replace table {model.relation} as select * from read_parquet([{files}])")
         counts[model.relation] = int(scalar(con, f"select count(*)::bigint from {model.relation}"))
     return counts

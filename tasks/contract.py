@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import duckdb
 
+from ledgerband.tasks.warehouse import sql_literal
+
 SUPPRESSION_NOTE = (
     "null when the cell has fewer than readers.min_cell_customers customers (statistical disclosure control)"
 )
@@ -117,10 +119,6 @@ def describe(name: str) -> tuple[str, dict[str, str]]:
     return TABLES[name]
 
 
-def _quote(text: str) -> str:
-    return "'" + text.replace("'", "''") + "'"
-
-
 def apply_comments(con: duckdb.DuckDBPyConnection, catalog: str) -> None:
     """COMMENT ON every described table and column of the attached database `catalog`."""
     tables = [
@@ -133,7 +131,7 @@ def apply_comments(con: duckdb.DuckDBPyConnection, catalog: str) -> None:
         if table not in TABLES and table not in HISTORY:
             continue
         comment, columns = describe(table)
-        con.execute(f"comment on table {catalog}.main.{table} is {_quote(comment)}")
+        con.execute(f"comment on table {catalog}.main.{table} is {sql_literal(comment)}")
         present = {
             c
             for (c,) in con.execute(
@@ -147,7 +145,9 @@ def apply_comments(con: duckdb.DuckDBPyConnection, catalog: str) -> None:
                 f"published table {table} has undescribed columns {missing}: describe them in tasks/contract.py"
             )
         for column in present:
-            con.execute(f"comment on column {catalog}.main.{table}.{column} is {_quote(columns[column])}")
+            con.execute(
+                f"comment on column {catalog}.main.{table}.{column} is {sql_literal(columns[column])}"
+            )
 
 
 def markdown(con: duckdb.DuckDBPyConnection, catalog: str) -> str:

@@ -12,13 +12,10 @@ from pathlib import Path
 import duckdb
 
 from ledgerband.tasks.errors import LedgerbandError
+from ledgerband.tasks.warehouse import sql_literal
 
 TABLES = ("income_bands_history", "band_summary_history", "band_movers_history")
 FORMULA_START = "^[=+\\-@\\t\\r]"
-
-
-def _quote(path: Path) -> str:
-    return str(path).replace("'", "''")
 
 
 def _safe_select(con: duckdb.DuckDBPyConnection, table: str) -> str:
@@ -60,7 +57,7 @@ def export_period(published: Path, period: str, fmt: str, target: Path) -> dict[
                 [run_id],
             )
             options = "format csv, header true" if fmt == "csv" else "format parquet"
-            con.execute(f"copy export_rows to '{_quote(path)}' ({options})")
+            con.execute(f"copy export_rows to {sql_literal(path)} ({options})")
             out[name] = path
         return out
     finally:

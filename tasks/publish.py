@@ -27,7 +27,7 @@ from ledgerband.tasks.errors import LedgerbandError, PublishWriteError
 from ledgerband.tasks.faults import checkpoint
 from ledgerband.tasks.retry import IO_RETRIES
 from ledgerband.tasks.train import TrainSummary
-from ledgerband.tasks.warehouse import open_warehouse, scalar, sql_model, transaction
+from ledgerband.tasks.warehouse import open_warehouse, scalar, sql_literal, sql_model, transaction
 
 # Readers never see a suppressed cell's count.
 _SUPPRESS = "h.* replace (case when h.suppressed then null else h.customer_count end as customer_count)"
@@ -197,7 +197,7 @@ def export_reader_copy(con: duckdb.DuckDBPyConnection, target: Path) -> Path:
         for path in leftovers:
             if path.exists():
                 path.unlink()
-        con.execute(f"attach '{_sql_path(tmp)}' as reader_copy")
+        con.execute(f"attach {sql_literal(tmp)} as reader_copy")
         try:
             for name, query in READER_TABLES.items():
                 con.execute(f"create table reader_copy.{name} as {query}")
@@ -256,12 +256,12 @@ def _write_parquet_table(con, root: Path, period: str, run_id: str, name: str, h
     staging.mkdir(parents=True)
     try:
         con.execute(
-            f"copy parquet_rows to '{_sql_path(staging / name)}' (format parquet, partition_by (period))"
+            f"copy parquet_rows to {sql_literal(staging / name)} (format parquet, partition_by (period))"
         )
         part = staging / name / f"period={period}"
         got = (
             con.execute(
-                f"select count(*), sum({measure}) from read_parquet('{_sql_path(part)}/*.parquet')"
+                f"select count(*), sum({measure}) from read_parquet({sql_literal(f'{part}/*.parquet')})"
             ).fetchall()[0]
             if part.exists()
             else (0, None)
@@ -281,10 +281,6 @@ def _write_parquet_table(con, root: Path, period: str, run_id: str, name: str, h
         shutil.rmtree(staging, ignore_errors=True)
         con.execute("drop table if exists parquet_rows")
     return int(expected[0])
-
-
-def _sql_path(path: Path) -> str:
-    return str(path).replace("'", "''")
 
 
 @task(

@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import duckdb
 
-from ledgerband.tasks.warehouse import SqlModel, scalar, sql_model, transaction
+from ledgerband.tasks.warehouse import SqlModel, columns_of, sql_model, transaction
 
 TABLE = "staging.transactions"
 
@@ -44,18 +44,6 @@ qualify row_number() over (partition by records.txn_id order by records.loaded_a
 """
 
 
-def _table_exists(con: duckdb.DuckDBPyConnection, relation: str) -> bool:
-    schema, name = relation.split(".")
-    return bool(
-        scalar(
-            con,
-            "select count(*) from duckdb_tables() where database_name = current_database() "
-            "and schema_name = ? and table_name = ?",
-            [schema, name],
-        )
-    )
-
-
 def refresh_transactions(con: duckdb.DuckDBPyConnection, model: SqlModel | None = None) -> str:
     """Bring staging.transactions up to date: 'appended' (n new loads), 'unchanged' or 'rebuilt'."""
     model = model or sql_model("staging", "transactions")
@@ -72,7 +60,7 @@ def refresh_transactions(con: duckdb.DuckDBPyConnection, model: SqlModel | None 
     }
     new = sorted(set(accepted) - set(held))
     appendable = (
-        _table_exists(con, TABLE)
+        bool(columns_of(con, TABLE))
         and bool(held)
         and all(accepted.get(load_id) == state for load_id, state in held.items())
         and all(accepted[n][0] > max(at for at, _ in held.values()) for n in new)

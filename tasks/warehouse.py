@@ -93,6 +93,23 @@ def transaction(con: duckdb.DuckDBPyConnection) -> Iterator[duckdb.DuckDBPyConne
     con.execute("commit")
 
 
+def sql_literal(value: str | Path) -> str:
+    """Text (a path, a comment) as a SQL string literal, single quotes doubled: for the few statements
+    that cannot take a bound parameter (COPY ... TO, ATTACH, COMMENT ON, read_parquet of a glob)."""
+    return "'" + str(value).replace("'", "''") + "'"
+
+
+def columns_of(con: duckdb.DuckDBPyConnection, relation: str) -> list[str]:
+    """The columns of `schema.table` in the connection's database, in order; empty when it does not exist."""
+    schema, table = relation.split(".")
+    rows = con.execute(
+        "select column_name from duckdb_columns() where database_name = current_database() "
+        "and schema_name = ? and table_name = ? order by column_index",
+        [schema, table],
+    ).fetchall()
+    return [name for (name,) in rows]
+
+
 def scalar(con: duckdb.DuckDBPyConnection, query: str, params: Any = None) -> Any:
     rows = con.execute(query, params).fetchall()
     return rows[0][0] if rows else None

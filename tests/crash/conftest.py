@@ -2,15 +2,13 @@
 
 from __future__ import annotations
 
-import os
 import subprocess
-import sys
-import time
 from pathlib import Path
 
 import pytest
 
 from ledgerband.tasks.faults import FAULT_ENV
+from tests.monthly_cli import run_month
 
 PERIOD = "2026-10"
 # A small bank and a quick model comparison: what is under test is crash safety, not accuracy.
@@ -38,31 +36,7 @@ def landing(tmp_path_factory):
 
 
 def run_cli(home: Path, landing: Path, fault: str | None = None) -> subprocess.CompletedProcess:
-    env = {k: v for k, v in os.environ.items() if not k.startswith(("PREFECT_API_URL", FAULT_ENV))}
-    env.update(
-        LEDGERBAND_HOME=str(home),
-        LEDGERBAND_CONFIG=str(landing.parent / "ledgerband.toml"),
-        PREFECT_HOME=str(home / "prefect"),
-    )
-    if fault:
-        env[FAULT_ENV] = fault
-    command = [
-        sys.executable,
-        "-m",
-        "ledgerband.flows.cli",
-        "run",
-        "--period",
-        PERIOD,
-        "--landing",
-        str(landing),
-    ]
-    # Output to a file, not a pipe: a killed run's orphaned server would hold a pipe open (and the test
-    # would wait on it) until it is reaped.
-    home.mkdir(parents=True, exist_ok=True)
-    log = home.parent / f"{home.name}-{fault or 'run'}-{time.monotonic_ns()}.log"
-    with log.open("w") as out:
-        done = subprocess.run(command, env=env, stdout=out, stderr=subprocess.STDOUT, timeout=600)
-    return subprocess.CompletedProcess(command, done.returncode, log.read_text(), "")
+    return run_month(home, landing, PERIOD, {FAULT_ENV: fault} if fault else None, label=fault or "run")
 
 
 @pytest.fixture(scope="session")

@@ -16,41 +16,16 @@ import duckdb
 import pytest
 
 from ledgerband.tasks.faults import FAULT_EXIT_CODE, POINTS
-from ledgerband.tasks.publish import READER_TABLES
 from ledgerband.tasks.runtime import orphaned_servers
 from ledgerband.tasks.settings import Settings
 from tests.crash.conftest import PERIOD
 from tests.crash.conftest import run_cli as _run
+from tests.monthly_cli import reader_tables
 
 pytestmark = pytest.mark.crash
 
 # Points after the publish transaction commits: the killed run left a whole snapshot of the month.
 PUBLISHED_BEFORE_THE_CRASH = {"mid_publish", "after_swap"}
-VOLATILE = ("run_id", "snapshot_id", "model_version")  # name the run (or its model) that wrote a row
-
-
-def _tables(home: Path) -> dict[str, list[tuple]]:
-    """The readers' copy, every table, without the columns that name the run that wrote it."""
-    path = Settings(home=home).published_path
-    con = duckdb.connect(str(path), read_only=True)
-    try:
-        out = {}
-        for name in READER_TABLES:
-            columns = [
-                c
-                for (c,) in con.execute(
-                    "select column_name from information_schema.columns where table_name = ? order by ordinal_position",
-                    [name],
-                ).fetchall()
-                if c not in VOLATILE and not c.endswith("_at")
-            ]
-            if name in ("decisions", "snapshots"):
-                continue  # one row per run by design: a crashed run's decisions are its record
-            listed = ", ".join(f'"{c}"' for c in columns)
-            out[name] = con.execute(f"select {listed} from {name} order by all").fetchall()
-        return out
-    finally:
-        con.close()
 
 
 def _warehouse_figures(home: Path) -> tuple:
@@ -65,7 +40,7 @@ def _warehouse_figures(home: Path) -> tuple:
 
 @pytest.fixture(scope="module")
 def clean(clean_home):
-    return _tables(clean_home), _warehouse_figures(clean_home)
+    return reader_tables(clean_home), _warehouse_figures(clean_home)
 
 
 def _alive(pids: list[int]) -> list[int]:
@@ -90,7 +65,7 @@ def test_a_run_killed_here_is_rerun_to_the_clean_answer(point, tmp_path, landing
     # The readers' copy is never partial: absent (nothing published yet) or a whole earlier copy.
     reader = Settings(home=home).published_path
     if reader.exists():
-        _tables(home)
+        reader_tables(home)
 
     # The killed run's temporary Prefect server is found as an orphan; the next run ends it.
     orphans = orphaned_servers(home / "prefect")
@@ -102,7 +77,7 @@ def test_a_run_killed_here_is_rerun_to_the_clean_answer(point, tmp_path, landing
 
     tables, figures = dict(clean[0]), clean[1]
     assert _warehouse_figures(home) == figures  # same rows and amounts staged: nothing lost or doubled
-    got = _tables(home)
+    got = reader_tables(home)
     # The published tables equal a clean run's, history included: when the killed run's publish had
     # committed, the rerun's identical snapshot replaced it (the month is in history once).
     assert got == tables

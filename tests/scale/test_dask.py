@@ -11,17 +11,14 @@ Marked `scale` (about 3 minutes): `make test-scale`; CI runs it after the defaul
 from __future__ import annotations
 
 import json
-import os
-import subprocess
-import sys
 from pathlib import Path
 
 import duckdb
 import pytest
 
 from ledgerband.tasks.buckets import per_customer_models
-from ledgerband.tasks.publish import READER_TABLES
 from ledgerband.tasks.settings import Settings
+from tests.monthly_cli import reader_tables, run_month
 
 pytestmark = pytest.mark.scale
 
@@ -39,8 +36,6 @@ candidates = ["linear_regression", "decision_tree"]
 cv_folds = 3
 cv_repeats = 2
 """
-# Columns that name the run that wrote a row, or when.
-VOLATILE = ("run_id", "snapshot_id", "model_version")
 
 
 @pytest.fixture(scope="module")
@@ -53,53 +48,10 @@ def landing(tmp_path_factory):
     return files.landing_dir
 
 
-def _run(home: Path, landing: Path, **scale: str) -> subprocess.CompletedProcess:
-    env = {k: v for k, v in os.environ.items() if not k.startswith(("PREFECT_API_URL", "LEDGERBAND_"))}
-    env.update(
-        LEDGERBAND_HOME=str(home),
-        LEDGERBAND_CONFIG=str(landing.parent / "ledgerband.toml"),
-        PREFECT_HOME=str(home / "prefect"),
-        **{f"LEDGERBAND_SCALE__{k.upper()}": v for k, v in scale.items()},
-    )
-    home.mkdir(parents=True)
-    command = [
-        sys.executable,
-        "-m",
-        "ledgerband.flows.cli",
-        "run",
-        "--period",
-        PERIOD,
-        "--landing",
-        str(landing),
-    ]
-    log = home.parent / f"{home.name}.log"
-    with log.open("w") as out:
-        done = subprocess.run(command, env=env, stdout=out, stderr=subprocess.STDOUT, timeout=900)
-    assert done.returncode == 0, log.read_text()[-4000:]
-    return done
-
-
-def _reader_tables(home: Path) -> dict[str, list[tuple]]:
-    con = duckdb.connect(str(Settings(home=home).published_path), read_only=True)
-    try:
-        out = {}
-        for name in READER_TABLES:
-            if name in ("decisions", "snapshots"):
-                continue  # one row per run, naming it
-            columns = [
-                c
-                for (c,) in con.execute(
-                    "select column_name from information_schema.columns where table_name = ? "
-                    "order by ordinal_position",
-                    [name],
-                ).fetchall()
-                if c not in VOLATILE and not c.endswith("_at")
-            ]
-            listed = ", ".join(f'"{c}"' for c in columns)
-            out[name] = con.execute(f"select {listed} from {name} order by all").fetchall()
-        return out
-    finally:
-        con.close()
+def _run(home: Path, landing: Path, **scale: str) -> None:
+    env = {f"LEDGERBAND_SCALE__{k.upper()}": v for k, v in scale.items()}
+    done = run_month(home, landing, PERIOD, env)
+    assert done.returncode == 0, done.stdout[-4000:]
 
 
 def _built_tables(home: Path) -> dict[str, list[tuple]]:
@@ -132,11 +84,11 @@ def test_buckets_and_dask_publish_what_one_machine_does(tmp_path, landing):
     _run(tmp_path / "dask", landing, bucket_customers="150", runner="dask", dask_workers="2")
 
     assert [_buckets(tmp_path / h) for h in ("whole", "buckets", "dask")] == [1, 4, 4]
-    whole_built, whole_read = _built_tables(tmp_path / "whole"), _reader_tables(tmp_path / "whole")
+    whole_built, whole_read = _built_tables(tmp_path / "whole"), reader_tables(tmp_path / "whole")
     assert whole_built["features.customer_label"], "the month built no labels: nothing would be compared"
     assert whole_read["income_bands"], "the month published no bands: nothing would be compared"
     for other in ("buckets", "dask"):
-        built, read = _built_tables(tmp_path / other), _reader_tables(tmp_path / other)
+        built, read = _built_tables(tmp_path / other), reader_tables(tmp_path / other)
         for relation, rows in whole_built.items():
             assert built[relation] == rows, f"{other}: {relation} differs from the single build"
         for table, rows in whole_read.items():

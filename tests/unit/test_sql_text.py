@@ -17,25 +17,31 @@ SQL_CALLS = {"execute", "executemany", "sql", "query"}
 # (file, formatted expressions) -> why they cannot carry outside input.
 REVIEWED = {
     ("tasks/buckets.py", ("relation", "columns")): "relation from the layer files' Reads headers (our own "
-    "package files); columns is a path made a literal by _literal",
-    ("tasks/buckets.py", ("BUCKET_OF.format(n=int(n))", "relation", "_literal(target)")): "BUCKET_OF is a "
+    "package files); columns is a path made a literal by sql_literal",
+    ("tasks/buckets.py", ("BUCKET_OF.format(n=int(n))", "relation", "sql_literal(target)")): "BUCKET_OF is a "
     "constant with an int; relation and the path as above",
-    ("tasks/buckets.py", ("relation", "_literal(f'{target}.parquet')")): "as above",
+    ("tasks/buckets.py", ("relation", "sql_literal(f'{target}.parquet')")): "as above",
     ("tasks/buckets.py", ("schema",)): "the schema part of a relation from our Reads headers",
-    ("tasks/buckets.py", ("relation", "files")): "relation as above; files a path made a literal by _literal",
+    (
+        "tasks/buckets.py",
+        ("relation", "files"),
+    ): "relation as above; files a path made a literal by sql_literal",
     ("tasks/buckets.py", ("model.layer",)): "the folder name of one of our package's SQL files",
     ("tasks/buckets.py", ("model.relation", "target")): "our SQL file's relation; target made a literal by "
-    "_literal",
+    "sql_literal",
     (
         "tasks/buckets.py",
         ("model.relation", "files"),
-    ): "our SQL file's relation; files made literals by _literal",
+    ): "our SQL file's relation; files made literals by sql_literal",
     (
         "tasks/contract.py",
-        ("catalog", "table", "_quote(comment)"),
+        ("catalog", "table", "sql_literal(comment)"),
     ): "catalog is our attach name; table is checked "
-    "against contract.TABLES/HISTORY just above; the comment is our text, quoted by _quote",
-    ("tasks/contract.py", ("catalog", "table", "column", "_quote(columns[column])")): "as above; column read "
+    "against contract.TABLES/HISTORY just above; the comment is our text, quoted by warehouse.sql_literal",
+    (
+        "tasks/contract.py",
+        ("catalog", "table", "column", "sql_literal(columns[column])"),
+    ): "as above; column read "
     "from duckdb_columns() of our own table and checked against the contract's column list",
     (
         "tasks/export.py",
@@ -44,8 +50,8 @@ REVIEWED = {
     ("tasks/export.py", ("columns", "table")): "columns from `describe` of that table, table as above",
     (
         "tasks/export.py",
-        ("_quote(path)", "options"),
-    ): "path quoted by _quote (single quotes doubled); options from a fixed dict keyed by the format enum",
+        ("sql_literal(path)", "options"),
+    ): "path made a literal by warehouse.sql_literal (single quotes doubled); options from a fixed dict keyed by the format enum",
     (
         "tasks/ingest.py",
         ("target", "cols", "cols"),
@@ -54,15 +60,18 @@ REVIEWED = {
     ("tasks/loads.py", ("table",)): "a literal tuple of three table names",
     ("tasks/publish.py", ("table", "model.query")): "table a literal at the call site; query read from a "
     "packaged SQL file",
-    ("tasks/publish.py", ("_sql_path(tmp)",)): "a path under the state folder, quotes doubled by _sql_path",
+    (
+        "tasks/publish.py",
+        ("sql_literal(tmp)",),
+    ): "a path under the state folder, made a literal by sql_literal",
     ("tasks/publish.py", ("READER_TABLES[history]",)): "a query from the module's own dict",
     ("tasks/publish.py", ("table",)): "a literal at the call site",
     ("tasks/publish.py", ("name", "query")): "READER_TABLES' own keys and queries",
-    ("tasks/publish.py", ("_sql_path(staging / name)",)): "a path under the state folder, quotes doubled",
+    ("tasks/publish.py", ("sql_literal(staging / name)",)): "a path under the state folder, quotes doubled",
     ("tasks/publish.py", ("columns", "table") * 4): "table from publish.HISTORY_TABLES, the module's own "
     "tuple; columns read from information_schema for that table, each double-quoted",
     ("tasks/publish.py", ("measure",)): "one of two literal column names chosen just above",
-    ("tasks/publish.py", ("measure", "_sql_path(part)")): "as above; path quotes doubled",
+    ("tasks/publish.py", ("measure", "sql_literal(f'{part}/*.parquet')")): "as above; path quotes doubled",
     ("tasks/pushdown.py", ("carried", "flags", "query")): "carried: helper column names from validate's own "
     "_NAMES_A_FIELD, double-quoted; flags: predicates built by pushdown.predicate from suite rules whose column "
     "names pass translatable() (an identifier pattern and present in the query), values bound as $regex_i, "
