@@ -120,7 +120,11 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
             f"{manifest.period} --reason ...` (or ask the sender for a new file name)"
         )
     records = read_records(path)
-    enforce(con, ctx, extract_contract_decision(records.header, source=path))
+    enforce(
+        con,
+        ctx,
+        extract_contract_decision(records.header, source=path, engine=ctx.settings.quality.engine),
+    )
     if records.table.num_rows + len(records.malformed) == 0:
         raise ExtractError(
             f"{path}: rule extract_has_records: no data records after line 1 (header); a month's ledger "

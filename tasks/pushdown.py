@@ -21,6 +21,12 @@ Nulls are "missing" (skipped) for all but the two null rules, as in GX. `mostly`
 argument (row_condition, parse_strings_as_datetimes, ...), or a pattern on a column that is not text,
 leaves the rule to GX. The equivalence with GX is tested on the whole bad-input catalogue
 (tests/integration/test_bad_inputs.py).
+
+Two header rules are read here too (`header_result`), so that ingest need not import GX (about 6 s) for
+a file's first line: expect_table_columns_to_match_set (GX's pandas `_validate`: observed and mismatched
+names sorted, `unexpected` allowed unless exact_match, which defaults to true) and
+expect_table_column_count_to_equal. Tested against GX on every header case
+(tests/unit/test_header_rules.py).
 """
 
 from __future__ import annotations
@@ -66,6 +72,34 @@ def translatable(exp: dict, column_types: dict[str, str]) -> bool:
     if exp["type"] == "expect_column_values_to_match_regex" and column_types[column] != "VARCHAR":
         return False  # GX would match the str() of the value; DuckDB's cast to text writes it differently
     return True
+
+
+HEADER_TYPES = frozenset({"expect_table_columns_to_match_set", "expect_table_column_count_to_equal"})
+
+
+def header_result(exp: dict, columns: list[str]) -> dict | None:
+    """A header rule's outcome in GX's result shape ({"success", "result"}), or None to leave it to GX."""
+    kind, kwargs = exp.get("type"), exp.get("kwargs", {})
+    if kind == "expect_table_column_count_to_equal" and set(kwargs) == {"value"}:
+        return {"success": len(columns) == kwargs["value"], "result": {"observed_value": len(columns)}}
+    if kind != "expect_table_columns_to_match_set" or not set(kwargs) <= {"column_set", "exact_match"}:
+        return None
+    if not isinstance(kwargs.get("column_set"), list):
+        return None
+    expected, found = set(kwargs["column_set"]), set(columns)
+    observed = sorted(found)
+    if expected == found:
+        return {"success": True, "result": {"observed_value": observed}}
+    mismatched = {}
+    if found - expected:
+        mismatched["unexpected"] = sorted(found - expected)
+    if expected - found:
+        mismatched["missing"] = sorted(expected - found)
+    exact = kwargs.get("exact_match", True) is not False
+    return {
+        "success": not exact and "missing" not in mismatched,
+        "result": {"observed_value": observed, "details": {"mismatched": mismatched}},
+    }
 
 
 @dataclass(frozen=True)

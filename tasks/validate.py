@@ -159,17 +159,35 @@ def _run(
     return list(result.results)
 
 
-def extract_contract_decision(columns: list[str], source: Path, suite_name: str = "ledger_lines") -> Decision:
-    """The suite's table-level rules on a file's header: the extract contract check of the quality gate."""
+def extract_contract_decision(
+    columns: list[str], source: Path, suite_name: str = "ledger_lines", engine: str = "duckdb"
+) -> Decision:
+    """The suite's table-level rules on a file's header: the extract contract check of the quality gate.
+
+    With engine "duckdb", the header rules with a plain reading are evaluated by `pushdown.header_result`
+    (no GX import at ingest); the others, and all of them with engine "gx", by GX.
+    """
     parts = read_suite(suite_name)
-    frame = pd.DataFrame({c: pd.Series([], dtype="str") for c in columns})
+    outcomes: list[tuple[str, dict]] = []  # (rule, GX-shaped result)
+    by_gx = []
+    for exp in parts.table:
+        local = pushdown.header_result(exp, columns) if engine == "duckdb" else None
+        if local is None:
+            by_gx.append(exp)
+        else:
+            outcomes.append((exp["meta"]["rule"], local))
+    if by_gx:
+        frame = pd.DataFrame({c: pd.Series([], dtype="str") for c in columns})
+        for r in _run(f"{suite_name}.table", by_gx, frame):
+            outcomes.append((r.expectation_config.meta["rule"], {"success": r.success, "result": r.result}))
+    order = {e["meta"]["rule"]: i for i, e in enumerate(parts.table)}
     broken = []
-    for r in _run(f"{suite_name}.table", parts.table, frame):
-        if not r.success:
-            details = (r.result or {}).get("details", {}).get("mismatched") or {
-                "observed": r.result.get("observed_value")
+    for rule, r in sorted(outcomes, key=lambda o: order[o[0]]):
+        if not r["success"]:
+            details = (r["result"] or {}).get("details", {}).get("mismatched") or {
+                "observed": r["result"].get("observed_value")
             }
-            broken.append(f"line 1 (header) breaks rule {r.expectation_config.meta['rule']}: {details}")
+            broken.append(f"line 1 (header) breaks rule {rule}: {details}")
     figures = {"columns": list(columns), "broken_rules": broken}
     thresholds = {"rules": [e["meta"]["rule"] for e in parts.table]}
     reason = f"{source}: " + ("; ".join(broken) if broken else "header matches the contract")
