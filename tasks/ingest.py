@@ -13,6 +13,7 @@ from decimal import Decimal
 from pathlib import Path
 
 import duckdb
+import pyarrow as pa
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
@@ -24,7 +25,7 @@ from ledgerband.tasks.gates import enforce
 from ledgerband.tasks.gates.manifest import FileCounts, reconcile
 from ledgerband.tasks.landing.contract import CUSTOMER_COLUMNS, LEDGER_COLUMNS, sha256_file
 from ledgerband.tasks.landing.manifest import Manifest, confined, manifests_to_load, read_manifest
-from ledgerband.tasks.landing.records import Records, read_records
+from ledgerband.tasks.landing.records import read_records, stream_records
 from ledgerband.tasks.retry import IO_RETRIES
 from ledgerband.tasks.validate import extract_contract_decision
 from ledgerband.tasks.warehouse import open_warehouse, transaction
@@ -44,12 +45,12 @@ where load_id = ?
 def _insert_records(
     con: duckdb.DuckDBPyConnection,
     target: str,
-    records: Records,
+    records: pa.Table | pa.RecordBatchReader,
     columns: tuple[str, ...],
     load_id: str,
     path: Path,
 ) -> None:
-    con.register("incoming_records", records.table)
+    con.register("incoming_records", records)
     cols = ", ".join(columns)
     con.execute(
         f"insert into {target} (load_id, source_file, source_line, {cols}) "
@@ -119,24 +120,25 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
             f"content; an accepted extract is replaced only on purpose: `ledgerband restate --period "
             f"{manifest.period} --reason ...` (or ask the sender for a new file name)"
         )
-    records = read_records(path)
+    records = stream_records(path)
     enforce(
         con,
         ctx,
         extract_contract_decision(records.header, source=path, engine=ctx.settings.quality.engine),
     )
-    if records.table.num_rows + len(records.malformed) == 0:
-        raise ExtractError(
-            f"{path}: rule extract_has_records: no data records after line 1 (header); a month's ledger "
-            "extract always holds postings, so an empty one is a failed export (manifest "
-            f"{manifest.path.name} says {manifest.row_count})"
-        )
-
     load_id = loads.new_load_id()
     now = datetime.now()
     with transaction(con):
         loads.forget_unaccepted(con, sha, loads.LEDGER)
-        _insert_records(con, "raw.ledger_lines", records, LEDGER_COLUMNS, load_id, path)
+        # The file streams into the table block by block; its malformed records are known at the end.
+        _insert_records(con, "raw.ledger_lines", records.reader(), LEDGER_COLUMNS, load_id, path)
+        records.finish()
+        if records.rows + len(records.malformed) == 0:
+            raise ExtractError(
+                f"{path}: rule extract_has_records: no data records after line 1 (header); a month's ledger "
+                "extract always holds postings, so an empty one is a failed export (manifest "
+                f"{manifest.path.name} says {manifest.row_count})"
+            )
         checkpoint("mid_load")
         for line, text, reason, rule in records.malformed:
             con.execute(
@@ -145,7 +147,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
             )
         credit, debit, unreadable = con.execute(_TOTALS, [load_id]).fetchall()[0]
         counts = FileCounts(
-            rows_in_file=records.table.num_rows + len(records.malformed),
+            rows_in_file=records.rows + len(records.malformed),
             credit_total=Decimal(credit),
             debit_total=Decimal(debit),
             unreadable=int(unreadable) + len(records.malformed),
@@ -160,7 +162,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
                 sha256=sha,
                 run_id=ctx.run_id,
                 rows_in_file=counts.rows_in_file,
-                rows_loaded=records.table.num_rows,
+                rows_loaded=records.rows,
                 rows_quarantined=len(records.malformed),
                 period=manifest.period,
                 manifest_row_count=manifest.row_count,
@@ -177,7 +179,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
         str(manifest.period),
         loads.LOADED,
         counts.rows_in_file,
-        records.table.num_rows,
+        records.rows,
         len(records.malformed),
         list(decision.figures["notes"]),
     )
@@ -210,7 +212,7 @@ def load_customers(con: duckdb.DuckDBPyConnection, ctx: RunContext, path: Path) 
     rows = records.table.num_rows
     with transaction(con):
         loads.forget_unaccepted(con, sha, loads.CUSTOMERS)
-        _insert_records(con, "raw.customers", records, CUSTOMER_COLUMNS, load_id, path)
+        _insert_records(con, "raw.customers", records.table, CUSTOMER_COLUMNS, load_id, path)
         loads.register(
             con,
             loads.NewLoad(

@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 import csv
-from dataclasses import dataclass
+from collections.abc import Iterator
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -28,59 +29,116 @@ class Records:
 FIELD_COUNT_RULE = "record_field_count"
 UTF8_RULE = "text_invalid_utf8"
 INGEST_RULES = (FIELD_COUNT_RULE, UTF8_RULE)
+BLOCK_BYTES = 1 << 24  # Arrow reads a CSV in blocks of this size: the most of a file held at once
+
+
+@dataclass
+class RecordStream:
+    """A file's records read block by block, for a reader (DuckDB) to consume once.
+
+    `header` is known at once. `rows` and `malformed` are complete only when the stream is exhausted;
+    a file that turns out unreadable part-way ends the stream early and leaves its ExtractError in
+    `error` (a consumer such as DuckDB cannot pass a Python exception through): call `finish()` after
+    consuming, which raises it.
+    """
+
+    path: Path
+    header: list[str]
+    schema: pa.Schema
+    batches: Iterator[pa.RecordBatch]
+    rows: int = 0
+    malformed: list[tuple[int, str, str, str]] = field(default_factory=list)
+    error: ExtractError | None = None
+
+    def reader(self) -> pa.RecordBatchReader:
+        return pa.RecordBatchReader.from_batches(self.schema, self._counted())
+
+    def _counted(self) -> Iterator[pa.RecordBatch]:
+        try:
+            for batch in self.batches:
+                self.rows += batch.num_rows
+                yield batch
+        except ExtractError as exc:
+            self.error = exc
+
+    def finish(self) -> None:
+        if self.error is not None:
+            raise self.error
+        self.malformed.sort()
 
 
 def read_records(path: Path) -> Records:
-    """Read a CSV or Parquet file as text, keeping each record's line number (header = line 1).
+    """The whole file at once (`stream_records`, collected): for small files and tests."""
+    stream = stream_records(path)
+    table = stream.reader().read_all()
+    stream.finish()
+    return Records(table=table, header=stream.header, malformed=stream.malformed)
+
+
+def stream_records(path: Path, block_bytes: int = BLOCK_BYTES) -> RecordStream:
+    """Read a CSV or Parquet file as text, block by block, keeping each record's line number (header = line 1).
 
     CSV is parsed single-threaded because only then does Arrow report the line number of a record
     with the wrong number of fields; such records are returned in `malformed`, never dropped. Fields
-    are read as bytes and then checked as UTF-8 in one vectorised cast; a record holding bytes that are
-    not UTF-8 (a Latin-1 export, a damaged block) is returned in `malformed` too, its text kept with the
-    bad bytes escaped.
+    are read as bytes and then checked as UTF-8 in one vectorised cast per block; a record holding bytes
+    that are not UTF-8 (a Latin-1 export, a damaged block) is returned in `malformed` too, its text kept
+    with the bad bytes escaped. Memory is a few blocks, whatever the file's size.
     """
     if path.suffix.lower() == ".parquet":
-        return _read_parquet(path)
+        return _stream_parquet(path)
     if path.suffix.lower() != ".csv":
         raise ExtractError(f"{path}: unsupported file type {path.suffix!r} (expected .csv or .parquet)")
     header = _csv_header(path)
-    malformed: list[tuple[int, str, str, str]] = []
+    schema = pa.schema([pa.field("source_line", pa.int64())] + [pa.field(c, pa.string()) for c in header])
+    stream = RecordStream(path, header, schema, iter(()))
+    reported: list[int] = []  # lines of records with the wrong number of fields, as Arrow reports them
 
     def on_invalid(row: pacsv.InvalidRow) -> str:
+        line = int(row.number) if row.number is not None else -1
         reason = f"has {row.actual_columns} fields, the header has {row.expected_columns}"
-        malformed.append(
-            (int(row.number) if row.number is not None else -1, row.text, reason, FIELD_COUNT_RULE)
-        )
+        stream.malformed.append((line, row.text, reason, FIELD_COUNT_RULE))
+        reported.append(line)
         return "skip"
 
-    try:
-        table = pacsv.read_csv(
-            path,
-            # One parser names the columns (ours, which allows a byte-order mark); Arrow skips the header.
-            read_options=pacsv.ReadOptions(
-                use_threads=False, block_size=1 << 24, column_names=header, skip_rows=1
-            ),
-            parse_options=pacsv.ParseOptions(invalid_row_handler=on_invalid),
-            convert_options=pacsv.ConvertOptions(
-                column_types={c: pa.binary() for c in header},
-                # Only an empty field is null (the contract); Arrow would also read "NA", "null", "nan" … as null.
-                null_values=[""],
-                strings_can_be_null=True,
-                quoted_strings_can_be_null=True,
-            ),
-        )
-    except pa.ArrowInvalid as exc:
-        raise ExtractError(f"{path}: cannot be parsed as UTF-8 CSV ({exc})") from exc
-    total = table.num_rows + len(malformed)
-    bad_lines = np.array(sorted(m[0] for m in malformed), dtype=np.int64)
-    # Lines 2..total+1 hold records; those not reported malformed are the table's rows, in order.
-    lines = np.setdiff1d(np.arange(2, total + 2, dtype=np.int64), bad_lines, assume_unique=True)
-    if len(lines) != table.num_rows:  # a quoted field spanning lines breaks the line arithmetic
-        lines = np.arange(2, table.num_rows + 2, dtype=np.int64)
-    table = table.add_column(0, "source_line", pa.array(lines))
-    table, not_utf8 = _as_text(table, header)
-    malformed = sorted(malformed + not_utf8)
-    return Records(table=table, header=header, malformed=malformed)
+    def batches() -> Iterator[pa.RecordBatch]:
+        try:
+            reader = pacsv.open_csv(
+                path,
+                # One parser names the columns (ours, which allows a byte-order mark); Arrow skips the header.
+                read_options=pacsv.ReadOptions(
+                    use_threads=False, block_size=block_bytes, column_names=header, skip_rows=1
+                ),
+                parse_options=pacsv.ParseOptions(invalid_row_handler=on_invalid),
+                convert_options=pacsv.ConvertOptions(
+                    column_types={c: pa.binary() for c in header},
+                    # Only an empty field is null (the contract); Arrow would also read "NA", "null", "nan" … as null.
+                    null_values=[""],
+                    strings_can_be_null=True,
+                    quoted_strings_can_be_null=True,
+                ),
+            )
+            next_line = 2  # the line the next good record can be on (line 1 is the header)
+            passed = 0  # reported lines before next_line (Arrow reports them in file order)
+            for batch in reader:
+                # A block's malformed records are reported while it is parsed, so before its batch
+                # arrives (perhaps with some of the next block's): the batch's records are the first
+                # lines from next_line on that are not reported malformed.
+                while passed < len(reported) and reported[passed] < next_line:
+                    passed += 1
+                pending = reported[passed:]
+                lines = np.arange(next_line, next_line + batch.num_rows + len(pending), dtype=np.int64)
+                lines = lines[~np.isin(lines, pending)][: batch.num_rows]
+                if batch.num_rows:
+                    next_line = int(lines[-1]) + 1
+                table = pa.Table.from_batches([batch]).add_column(0, "source_line", pa.array(lines))
+                text, not_utf8 = _as_text(table, header)
+                stream.malformed.extend(not_utf8)
+                yield from text.to_batches()
+        except pa.ArrowInvalid as exc:
+            raise ExtractError(f"{path}: cannot be parsed as UTF-8 CSV ({exc})") from exc
+
+    stream.batches = batches()
+    return stream
 
 
 def _as_text(table: pa.Table, header: list[str]) -> tuple[pa.Table, list[tuple[int, str, str, str]]]:
@@ -145,16 +203,25 @@ def _csv_header(path: Path) -> list[str]:
     return header
 
 
-def _read_parquet(path: Path) -> Records:
+def _stream_parquet(path: Path, batch_rows: int = 1 << 17) -> RecordStream:
     try:
-        table = pq.read_table(path)
+        file = pq.ParquetFile(path)
+        names = file.schema_arrow.names
     except (pa.ArrowInvalid, OSError) as exc:
         raise ExtractError(f"{path}: cannot be read as Parquet ({exc})") from exc
-    cols = []
-    for name in table.column_names:
-        col = table[name]
-        cols.append(col if pa.types.is_string(col.type) else col.cast(pa.string()))
-    text = pa.table(cols, names=table.column_names)
-    text = text.add_column(0, "source_line", pa.array(np.arange(1, text.num_rows + 1, dtype=np.int64)))
-    # Parquet has no text lines: source_line is the record number (1-based).
-    return Records(table=text, header=list(table.column_names), malformed=[])
+    schema = pa.schema([pa.field("source_line", pa.int64())] + [pa.field(c, pa.string()) for c in names])
+
+    def batches() -> Iterator[pa.RecordBatch]:
+        # Parquet has no text lines: source_line is the record number (1-based).
+        first = 1
+        try:
+            for batch in file.iter_batches(batch_size=batch_rows):
+                cols = [pa.array(np.arange(first, first + batch.num_rows, dtype=np.int64))]
+                for col in batch.columns:
+                    cols.append(col if pa.types.is_string(col.type) else col.cast(pa.string()))
+                first += batch.num_rows
+                yield pa.RecordBatch.from_arrays(cols, schema=schema)
+        except (pa.ArrowInvalid, OSError) as exc:
+            raise ExtractError(f"{path}: cannot be read as Parquet ({exc})") from exc
+
+    return RecordStream(path, list(names), schema, batches())

@@ -166,3 +166,53 @@ def test_a_header_with_a_stray_carriage_return_is_refused_by_name(tmp_path):
     path.write_bytes(b"\rtxn_id,amount\nT1,1.00\n")
     with pytest.raises(ExtractError, match="cr.csv: line 1 \\(header\\) cannot be split into column names"):
         read_records(path)
+
+
+@pytest.mark.parametrize("block_bytes", [64, 1000, 1 << 24])
+def test_a_file_read_in_blocks_keeps_every_line_number(tmp_path, block_bytes):
+    """Streamed in blocks of any size (a block holding one record, a few, or the whole file), every record
+    keeps its line number and every malformed one is returned once. Reference: Python's csv module reading
+    the same file line by line (the file has no quoted line breaks, so record n + 1 is on line n + 1)."""
+    import csv
+    import random
+
+    from ledgerband.tasks.landing.records import stream_records
+
+    rng = random.Random(11)
+    lines = ["a,b,c"]
+    for n in range(2, 600):
+        kind = rng.random()
+        if kind < 0.05:
+            lines.append(f"{n},short")  # wrong number of fields
+        elif kind < 0.08:
+            lines.append(f"{n},Stra\udcdfe,x")  # a Latin-1 byte (written as 0xdf below)
+        elif kind < 0.10:
+            lines.append(f"{n},a,b,extra")
+        else:
+            lines.append(f"{n},{'v' * rng.randint(0, 40)},z")
+    path = tmp_path / "blocks.csv"
+    path.write_bytes("\n".join(lines).encode("utf-8", errors="surrogateescape") + b"\n")
+
+    stream = stream_records(path, block_bytes=block_bytes)
+    table = stream.reader().read_all()
+    stream.finish()
+    with path.open(encoding="utf-8", errors="surrogateescape", newline="") as f:
+        rows = list(csv.reader(f))[1:]
+    good = [i + 2 for i, r in enumerate(rows) if len(r) == 3 and "\udcdf" not in r[1]]
+    bad = [i + 2 for i, r in enumerate(rows) if i + 2 not in good]
+    assert table.column("source_line").to_pylist() == good
+    assert table.column("a").to_pylist() == [str(n) for n in good]  # each record's first field is its line
+    assert [m[0] for m in stream.malformed] == bad
+    assert stream.rows == len(good) and len(good) + len(bad) == 598
+
+
+def test_a_file_unreadable_part_way_ends_the_stream_with_its_error(tmp_path):
+    from ledgerband.tasks.landing.records import stream_records
+
+    path = tmp_path / "broken.csv"
+    # Quoted line breaks across block boundaries: Arrow's chunker loses sync part-way through the file.
+    path.write_text("a,b\n" + '1,"two\nlines"\n' * 300)
+    stream = stream_records(path, block_bytes=256)
+    assert 0 < stream.reader().read_all().num_rows < 300
+    with pytest.raises(ExtractError, match="broken.csv: cannot be parsed"):
+        stream.finish()
