@@ -13,6 +13,11 @@ default settings: fewer and the run stops for a missing month) the months.
 - The flow runs in its own process (`ledgerband run`, with its own temporary Prefect server), so its
   peak memory is its own: the whole run's from wait4(2), each stage's from ops.runs (VmHWM, reset per
   stage).
+- Two kinds of run. A first run (every size in BENCH_SIZES): the whole load window arrives at once.
+  A monthly run (every size in BENCH_MONTHLY, default 100000; empty to skip), the scheduled case: a
+  run a month before (not measured) has loaded the window's earlier months, and one new month
+  arrives. Its reference load is of the new month (what ingest and validate read), its reference
+  aggregate over the window (what the features cover).
 - In the same run, on the same files: DuckDB scanning the extracts, loading them into a table, and one
   plain per-customer aggregate (the reference figures); each stage's ratio to them.
 - One JSON file per run under `bench/results/` (machine facts included), and a printed table.
@@ -32,6 +37,8 @@ from pathlib import Path
 
 import duckdb
 import pytest
+
+from ledgerband.tasks.period import Period
 
 pytestmark = pytest.mark.bench
 
@@ -206,11 +213,11 @@ def _reference(extracts: list[str], work: Path) -> dict:
     return {"scan": round(scan, 2), "load": round(load, 2), "aggregate": round(aggregate, 2)}
 
 
-def _run_flow(landing: Path, home: Path) -> tuple[float, float, int]:
-    """`ledgerband run` for the last month in its own process: (seconds, peak RSS in MB, exit code)."""
+def _run_flow(landing: Path, home: Path, period: str = END_PERIOD) -> tuple[float, float, int]:
+    """`ledgerband run` for `period` in its own process: (seconds, peak RSS in MB, exit code)."""
     env = {k: v for k, v in os.environ.items() if not k.startswith(("PREFECT_API_URL", "LEDGERBAND_"))}
     env.update(LEDGERBAND_HOME=str(home), PREFECT_HOME=str(home / "prefect"))
-    log = (home.parent / "flow.log").open("w")
+    log = (home.parent / f"flow-{period}.log").open("w")
     t0 = time.perf_counter()
     proc = subprocess.Popen(
         [
@@ -219,7 +226,7 @@ def _run_flow(landing: Path, home: Path) -> tuple[float, float, int]:
             "ledgerband.flows.cli",
             "run",
             "--period",
-            END_PERIOD,
+            period,
             "--landing",
             str(landing),
         ],
@@ -234,30 +241,30 @@ def _run_flow(landing: Path, home: Path) -> tuple[float, float, int]:
     return seconds, usage.ru_maxrss / 1024, proc.returncode
 
 
-def _bench_one(customers: int, months: int, work: Path) -> dict:
-    if customers > TILE and customers % TILE == 0:
-        generated, landing = _tiled(customers, months)
-    else:
-        generated, landing = _extracts(customers, months)
-    reference = _reference(generated["extracts"], work)
-    home = work / "home"
-    home.mkdir()
-    seconds, peak_mb, code = _run_flow(landing, home)
-    assert code == 0, (work / "flow.log").read_text()[-3000:]
+def _stages(home: Path, period: str) -> dict:
     con = duckdb.connect(str(home / "warehouse.duckdb"), read_only=True)
     try:
-        [(stages,)] = con.execute("select stages from ops.runs where status = 'published'").fetchall()
+        [(stages,)] = con.execute(
+            "select stages from ops.runs where status = 'published' and period = ?", [period]
+        ).fetchall()
     finally:
         con.close()
-    stages = {
+    return {
         s["stage"]: {"seconds": s["seconds"], "peak_rss_mb": s.get("peak_rss_mb")} for s in json.loads(stages)
     }
-    rows = generated["rows"]
+
+
+def _figures(
+    label, customers, months, generated, seconds, peak_mb, stages, reference, records, loaded
+) -> dict:
+    """One column of the table. `records`: postings the run's features cover; `loaded`: those it ingested."""
     ingest_validate = stages["ingest"]["seconds"] + stages["validate"]["seconds"]
     return {
+        "label": label,
         "customers": customers,
         "months": months,
-        "records": rows,
+        "records": records,
+        "records_loaded": loaded,
         "extracts": (
             f"{generated['copies']} renamed copies of the {TILE:,}-customer demo bank"
             if "copies" in generated
@@ -276,21 +283,72 @@ def _bench_one(customers: int, months: int, work: Path) -> dict:
             "features_to_plain_aggregate": round(stages["features"]["seconds"] / reference["aggregate"], 1),
         },
         "records_per_second": {
-            "ingest_validate": round(rows / ingest_validate),
-            "flow": round(rows / seconds),
+            "ingest_validate": round(loaded / ingest_validate),
+            "flow": round(records / seconds),
         },
-        "microseconds_per_record": round(seconds / rows * 1e6, 2),
+        "microseconds_per_record": round(seconds / records * 1e6, 2),
     }
 
 
+def _bench_one(customers: int, months: int, work: Path) -> dict:
+    """A first run: every month of the load window arrives at once."""
+    if customers > TILE and customers % TILE == 0:
+        generated, landing = _tiled(customers, months)
+    else:
+        generated, landing = _extracts(customers, months)
+    reference = _reference(generated["extracts"], work)
+    home = work / "home"
+    home.mkdir()
+    seconds, peak_mb, code = _run_flow(landing, home)
+    assert code == 0, (work / f"flow-{END_PERIOD}.log").read_text()[-3000:]
+    rows = generated["rows"]
+    return _figures(
+        f"{customers:,} x {months}", customers, months, generated, seconds, peak_mb,
+        _stages(home, END_PERIOD), reference, rows, rows,
+    )  # fmt: skip
+
+
+def _bench_monthly(customers: int, months: int, work: Path) -> dict:
+    """The scheduled case: the window's earlier months are in (a run a month before, not measured) and
+    one new month arrives; staging.transactions is appended to, the features cover the whole window."""
+    generated, landing = _extracts(customers, months + 1)
+    first, *_, last = generated["periods"]
+    window = [e for e in generated["extracts"] if f"ledger-{first}." not in e]
+    new = [e for e in window if f"ledger-{last}." in e]
+    reference = _reference(window, work)
+    reference_new = _reference(new, work / "new")
+    reference["load"] = reference_new["load"]  # ingest and validate read the new month only
+    reference["scan"] = reference_new["scan"]
+    home = work / "home"
+    home.mkdir()
+    before = str(Period.parse(last).shift(-1))
+    _, _, code = _run_flow(landing, home, before)
+    assert code == 0, (work / f"flow-{before}.log").read_text()[-3000:]
+    seconds, peak_mb, code = _run_flow(landing, home, last)
+    assert code == 0, (work / f"flow-{last}.log").read_text()[-3000:]
+    con = duckdb.connect(str(home / "warehouse.duckdb"), read_only=True)
+    try:
+        [(loaded,)] = con.execute(
+            "select rows_in_file from ops.loads where dataset = 'ledger' and period = ?", [last]
+        ).fetchall()
+        [(records,)] = con.execute("select count(*) from staging.transactions").fetchall()
+    finally:
+        con.close()
+    return _figures(
+        f"{customers:,} monthly", customers, months, generated, seconds, peak_mb,
+        _stages(home, last), reference, int(records), int(loaded),
+    )  # fmt: skip
+
+
 def _table(results: list[dict]) -> str:
-    sizes = [f"{r['customers']:,} x {r['months']}" for r in results]
+    sizes = [r["label"] for r in results]
     lines = [f"{'':<28}" + "".join(f"{s:>22}" for s in sizes)]
 
     def row(label, values):
         lines.append(f"{label:<28}" + "".join(f"{v:>22}" for v in values))
 
-    row("records", [f"{r['records']:,}" for r in results])
+    row("records (window)", [f"{r['records']:,}" for r in results])
+    row("records loaded", [f"{r['records_loaded']:,}" for r in results])
     for stage in results[0]["stages"]:
         row(
             f"  {stage}",
@@ -317,11 +375,16 @@ def _table(results: list[dict]) -> str:
 def test_monthly_flow_at_scale(tmp_path):
     sizes = [int(s) for s in os.environ.get("BENCH_SIZES", "10000,100000").split(",")]
     months = int(os.environ.get("BENCH_MONTHS", "4"))  # the load window: payroll.lookback_months
+    monthly = [int(s) for s in os.environ.get("BENCH_MONTHLY", "100000").split(",") if s]
     results = []
     for customers in sizes:
         work = tmp_path / str(customers)
         work.mkdir()
         results.append(_bench_one(customers, months, work))
+    for customers in monthly:
+        work = tmp_path / f"{customers}-monthly"
+        (work / "new").mkdir(parents=True)
+        results.append(_bench_monthly(customers, months, work))
     table = _table(results)
     print("\n" + table)
     out = BENCH / "results"
