@@ -442,12 +442,14 @@ def _prediction_rows(
 
 
 # Types skops does not trust by default that our saved champions contain: OneHotEncoder keeps its output
-# dtype (numpy.dtype); trees and forests keep tree structures; histogram boosting its tree predictors.
+# dtype (numpy.dtype); trees and forests keep tree structures; histogram boosting its tree predictors;
+# our forest (models.SteadyForest) is scikit-learn's with a one-thread predict.
 # A test saves every candidate and checks this list covers it. Never pass get_untrusted_types().
 TRUSTED_TYPES = [
     "numpy.dtype",
     "sklearn.tree._tree.Tree",
     "sklearn.ensemble._hist_gradient_boosting.predictor.TreePredictor",
+    "ledgerband.tasks.models.SteadyForest",
 ]
 
 

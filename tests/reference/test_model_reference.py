@@ -207,3 +207,22 @@ def test_every_candidate_saves_and_reloads_with_the_trusted_types(tmp_path, log_
         np.testing.assert_allclose(again.predict(X), model.predict(X), rtol=1e-12)  # threads may reorder sums
         if log_target and name not in ("baseline_mean", "baseline_median"):
             assert (model.predict(X) > 0).all()  # back-transformed from the log scale
+
+
+def test_the_forest_estimates_the_same_on_every_call_and_as_scikit_learn_in_one_thread():
+    """Reference: scikit-learn's RandomForestRegressor predicting in one thread (trees summed in order).
+    Fitted on two threads, our forest's estimates equal that bit for bit on every call; scikit-learn's own
+    two-thread predict need not (its threads add into one array in the order they finish)."""
+    from sklearn.datasets import make_regression
+    from sklearn.ensemble import RandomForestRegressor
+
+    from ledgerband.tasks.models import SteadyForest
+
+    X, y = make_regression(3000, 12, noise=10, random_state=0)
+    args = {"n_estimators": 60, "max_samples": 0.5, "min_samples_leaf": 5, "random_state": 1}
+    ours = SteadyForest(n_jobs=2, **args).fit(X, y)
+    reference = RandomForestRegressor(n_jobs=2, **args).fit(X, y)
+    reference.n_jobs = 1
+    expected = reference.predict(X)
+    assert all(np.array_equal(ours.predict(X), expected) for _ in range(10))
+    assert ours.n_jobs == 2  # predicting leaves the fitted forest's settings as they were

@@ -25,6 +25,8 @@ pytestmark = pytest.mark.scale
 PERIOD = "2026-10"
 CUSTOMERS = 600
 # A small bank and a quick model comparison: what is under test is where the work runs, not accuracy.
+# Every kind of candidate, so each is scored on one-thread Dask workers as well as in the run's process
+# (HistGradientBoosting and the forest use threads there).
 CONFIG = """
 [accuracy]
 min_labelled_customers = 50
@@ -32,7 +34,7 @@ min_mae_skill = 0.0
 min_band_skill = 0.0
 coverage_tolerance = 0.5
 [train]
-candidates = ["linear_regression", "decision_tree"]
+candidates = ["linear_regression", "ridge", "decision_tree", "random_forest", "gradient_boosting"]
 cv_folds = 3
 cv_repeats = 2
 """
@@ -57,10 +59,15 @@ def _run(home: Path, landing: Path, **scale: str) -> None:
 def _built_tables(home: Path) -> dict[str, list[tuple]]:
     con = duckdb.connect(str(Settings(home=home).warehouse_path), read_only=True)
     try:
-        return {
+        tables = {
             m.relation: con.execute(f"select * from {m.relation} order by all").fetchall()
             for m in per_customer_models()
         }
+        # Every candidate's score on every split (the run id differs between runs, the scores must not).
+        tables["ml.cv_scores"] = con.execute(
+            "select candidate, split_index, rmse, mae from ml.cv_scores order by all"
+        ).fetchall()
+        return tables
     finally:
         con.close()
 
@@ -86,6 +93,7 @@ def test_buckets_and_dask_publish_what_one_machine_does(tmp_path, landing):
     assert [_buckets(tmp_path / h) for h in ("whole", "buckets", "dask")] == [1, 4, 4]
     whole_built, whole_read = _built_tables(tmp_path / "whole"), reader_tables(tmp_path / "whole")
     assert whole_built["features.customer_label"], "the month built no labels: nothing would be compared"
+    assert {row[0] for row in whole_built["ml.cv_scores"]} >= {"gradient_boosting", "random_forest"}
     assert whole_read["income_bands"], "the month published no bands: nothing would be compared"
     for other in ("buckets", "dask"):
         built, read = _built_tables(tmp_path / other), reader_tables(tmp_path / other)
