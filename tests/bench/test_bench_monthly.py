@@ -331,7 +331,12 @@ def _bench_monthly(customers: int, months: int, work: Path) -> dict:
         [(loaded,)] = con.execute(
             "select rows_in_file from ops.loads where dataset = 'ledger' and period = ?", [last]
         ).fetchall()
-        [(records,)] = con.execute("select count(*) from staging.transactions").fetchall()
+        # The window the features cover (staging.transactions also holds the month that left it).
+        [(records,)] = con.execute(
+            "select sum(rows_in_file) from ops.loads where dataset = 'ledger' and status = 'accepted' "
+            "and period >= ?",
+            [str(Period.parse(last).shift(1 - months))],
+        ).fetchall()
     finally:
         con.close()
     return _figures(
