@@ -20,22 +20,17 @@ from ledgerband.tasks.settings import Settings
 VOLATILE = ("run_id", "snapshot_id", "model_version")
 
 
-def run_month(
-    home: Path, landing: Path, period: str, env: dict[str, str] | None = None, label: str = "run"
-) -> subprocess.CompletedProcess:
-    """`ledgerband run --period <period>` with `<landing>/../ledgerband.toml`; stdout is the run's log.
+def isolated_env(home: Path, **extra: str) -> dict[str, str]:
+    """This process's environment for a `ledgerband run` of its own: none of the test session's
+    LEDGERBAND_* variables and no PREFECT_API_URL (the run starts its own temporary Prefect API)."""
+    env = {k: v for k, v in os.environ.items() if not k.startswith(("PREFECT_API_URL", "LEDGERBAND_"))}
+    env.update(LEDGERBAND_HOME=str(home), PREFECT_HOME=str(home / "prefect"), **extra)
+    return env
 
-    Only the given LEDGERBAND_* variables reach the run (none of the test session's), and no
-    PREFECT_API_URL: the run starts its own temporary Prefect API.
-    """
-    run_env = {k: v for k, v in os.environ.items() if not k.startswith(("PREFECT_API_URL", "LEDGERBAND_"))}
-    run_env.update(
-        LEDGERBAND_HOME=str(home),
-        LEDGERBAND_CONFIG=str(landing.parent / "ledgerband.toml"),
-        PREFECT_HOME=str(home / "prefect"),
-        **(env or {}),
-    )
-    command = [
+
+def run_command(period: str, landing: Path) -> list[str]:
+    """`ledgerband run --period <period> --landing <landing>` with this interpreter."""
+    return [
         sys.executable,
         "-m",
         "ledgerband.flows.cli",
@@ -45,6 +40,17 @@ def run_month(
         "--landing",
         str(landing),
     ]
+
+
+def run_month(
+    home: Path, landing: Path, period: str, env: dict[str, str] | None = None, label: str = "run"
+) -> subprocess.CompletedProcess:
+    """`ledgerband run --period <period>` with `<landing>/../ledgerband.toml`; stdout is the run's log.
+
+    Only the given LEDGERBAND_* variables reach the run (`isolated_env`).
+    """
+    run_env = isolated_env(home, LEDGERBAND_CONFIG=str(landing.parent / "ledgerband.toml"), **(env or {}))
+    command = run_command(period, landing)
     # Output to a file, not a pipe: a killed run's orphaned server would hold a pipe open (and the test
     # would wait on it) until it is reaped.
     home.mkdir(parents=True, exist_ok=True)

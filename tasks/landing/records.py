@@ -90,13 +90,13 @@ def stream_records(path: Path, block_bytes: int = BLOCK_BYTES) -> RecordStream:
         raise ExtractError(f"{path}: unsupported file type {path.suffix!r} (expected .csv or .parquet)")
     header = _csv_header(path)
     schema = pa.schema([pa.field("source_line", pa.int64())] + [pa.field(c, pa.string()) for c in header])
-    stream = RecordStream(path, header, schema, iter(()))
+    malformed: list[tuple[int, str, str, str]] = []
     reported: list[int] = []  # lines of records with the wrong number of fields, as Arrow reports them
 
     def on_invalid(row: pacsv.InvalidRow) -> str:
         line = int(row.number) if row.number is not None else -1
         reason = f"has {row.actual_columns} fields, the header has {row.expected_columns}"
-        stream.malformed.append((line, row.text, reason, FIELD_COUNT_RULE))
+        malformed.append((line, row.text, reason, FIELD_COUNT_RULE))
         reported.append(line)
         return "skip"
 
@@ -132,13 +132,12 @@ def stream_records(path: Path, block_bytes: int = BLOCK_BYTES) -> RecordStream:
                     next_line = int(lines[-1]) + 1
                 table = pa.Table.from_batches([batch]).add_column(0, "source_line", pa.array(lines))
                 text, not_utf8 = _as_text(table, header)
-                stream.malformed.extend(not_utf8)
+                malformed.extend(not_utf8)
                 yield from text.to_batches()
         except pa.ArrowInvalid as exc:
             raise ExtractError(f"{path}: cannot be parsed as UTF-8 CSV ({exc})") from exc
 
-    stream.batches = batches()
-    return stream
+    return RecordStream(path, header, schema, batches(), malformed=malformed)
 
 
 def _as_text(table: pa.Table, header: list[str]) -> tuple[pa.Table, list[tuple[int, str, str, str]]]:

@@ -29,7 +29,6 @@ import json
 import os
 import platform
 import subprocess
-import sys
 import time
 from datetime import datetime
 from decimal import Decimal
@@ -39,6 +38,7 @@ import duckdb
 import pytest
 
 from ledgerband.tasks.period import Period
+from tests.monthly_cli import isolated_env, run_command
 
 pytestmark = pytest.mark.bench
 
@@ -215,24 +215,11 @@ def _reference(extracts: list[str], work: Path) -> dict:
 
 def _run_flow(landing: Path, home: Path, period: str = END_PERIOD) -> tuple[float, float, int]:
     """`ledgerband run` for `period` in its own process: (seconds, peak RSS in MB, exit code)."""
-    env = {k: v for k, v in os.environ.items() if not k.startswith(("PREFECT_API_URL", "LEDGERBAND_"))}
-    env.update(LEDGERBAND_HOME=str(home), PREFECT_HOME=str(home / "prefect"))
     log = (home.parent / f"flow-{period}.log").open("w")
     t0 = time.perf_counter()
+    # Popen and wait4 rather than subprocess.run (tests/monthly_cli.run_month): wait4 gives the peak RSS.
     proc = subprocess.Popen(
-        [
-            sys.executable,
-            "-m",
-            "ledgerband.flows.cli",
-            "run",
-            "--period",
-            period,
-            "--landing",
-            str(landing),
-        ],
-        env=env,
-        stdout=log,
-        stderr=subprocess.STDOUT,
+        run_command(period, landing), env=isolated_env(home), stdout=log, stderr=subprocess.STDOUT
     )
     _, status, usage = os.wait4(proc.pid, 0)
     seconds = time.perf_counter() - t0
