@@ -25,7 +25,7 @@ from ledgerband.tasks.gates import enforce
 from ledgerband.tasks.gates.manifest import FileCounts, reconcile
 from ledgerband.tasks.landing.contract import CUSTOMER_COLUMNS, LEDGER_COLUMNS, sha256_file
 from ledgerband.tasks.landing.manifest import Manifest, confined, manifests_to_load, read_manifest
-from ledgerband.tasks.landing.records import read_records, stream_records
+from ledgerband.tasks.landing.records import ArrowRowHandlerError, RecordStream, read_records, stream_records
 from ledgerband.tasks.retry import IO_RETRIES
 from ledgerband.tasks.validate import extract_contract_decision
 from ledgerband.tasks.warehouse import open_warehouse, transaction
@@ -60,6 +60,30 @@ def _insert_records(
     con.unregister(
         "incoming_records"
     )  # (after a failed insert the name stays; the next register replaces it)
+
+
+SLOW_READ_NOTE = (
+    "read with Python's csv module: a record has the wrong number of fields and bytes that are not UTF-8, "
+    "which Arrow's reader cannot hand over"
+)
+
+
+def _stream_ledger(
+    con: duckdb.DuckDBPyConnection, records: RecordStream, load_id: str, path: Path
+) -> tuple[RecordStream, bool]:
+    """Stream the extract into raw.ledger_lines (inside the caller's transaction); the stream, finished, and
+    whether the file had to be read again by Python's csv module (ArrowRowHandlerError): the rows Arrow
+    inserted before it stopped are deleted and the whole file is read again, so no record is counted twice."""
+    _insert_records(con, "raw.ledger_lines", records.reader(), LEDGER_COLUMNS, load_id, path)
+    try:
+        records.finish()
+        return records, False
+    except ArrowRowHandlerError:
+        con.execute("delete from raw.ledger_lines where load_id = ?", [load_id])
+    records = stream_records(path, parser="python")
+    _insert_records(con, "raw.ledger_lines", records.reader(), LEDGER_COLUMNS, load_id, path)
+    records.finish()
+    return records, True
 
 
 def _check_customer_header(path: Path, header: list[str]) -> None:
@@ -131,8 +155,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
     with transaction(con):
         loads.forget_unaccepted(con, sha, loads.LEDGER)
         # The file streams into the table block by block; its malformed records are known at the end.
-        _insert_records(con, "raw.ledger_lines", records.reader(), LEDGER_COLUMNS, load_id, path)
-        records.finish()
+        records, read_again = _stream_ledger(con, records, load_id, path)
         if records.rows + len(records.malformed) == 0:
             raise ExtractError(
                 f"{path}: rule extract_has_records: no data records after line 1 (header); a month's ledger "
@@ -181,7 +204,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
         counts.rows_in_file,
         records.rows,
         len(records.malformed),
-        list(decision.figures["notes"]),
+        list(decision.figures["notes"]) + ([SLOW_READ_NOTE] if read_again else []),
     )
 
 

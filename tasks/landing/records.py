@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 import csv
+import io
+import re
+import sys
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -30,6 +33,13 @@ FIELD_COUNT_RULE = "record_field_count"
 UTF8_RULE = "text_invalid_utf8"
 INGEST_RULES = (FIELD_COUNT_RULE, UTF8_RULE)
 BLOCK_BYTES = 1 << 24  # Arrow reads a CSV in blocks of this size: the most of a file held at once
+PYTHON_BATCH_ROWS = 1 << 16  # records per batch when Python's csv module reads the file
+
+
+class ArrowRowHandlerError(ExtractError):
+    """Arrow could not hand a record to our row handler: it has the wrong number of fields *and* bytes
+    that are not UTF-8 (Arrow decodes the record's text before calling the handler, and fails). The
+    file is readable; `stream_records(path, parser="python")` reads it, record by record."""
 
 
 @dataclass
@@ -67,15 +77,15 @@ class RecordStream:
         self.malformed.sort()
 
 
-def read_records(path: Path) -> Records:
+def read_records(path: Path, parser: str = "arrow") -> Records:
     """The whole file at once (`stream_records`, collected): for small files and tests."""
-    stream = stream_records(path)
+    stream = stream_records(path, parser=parser)
     table = stream.reader().read_all()
     stream.finish()
     return Records(table=table, header=stream.header, malformed=stream.malformed)
 
 
-def stream_records(path: Path, block_bytes: int = BLOCK_BYTES) -> RecordStream:
+def stream_records(path: Path, block_bytes: int = BLOCK_BYTES, parser: str = "arrow") -> RecordStream:
     """Read a CSV or Parquet file as text, block by block, keeping each record's line number (header = line 1).
 
     CSV is parsed single-threaded because only then does Arrow report the line number of a record
@@ -83,6 +93,11 @@ def stream_records(path: Path, block_bytes: int = BLOCK_BYTES) -> RecordStream:
     are read as bytes and then checked as UTF-8 in one vectorised cast per block; a record holding bytes
     that are not UTF-8 (a Latin-1 export, a damaged block) is returned in `malformed` too, its text kept
     with the bad bytes escaped. Memory is a few blocks, whatever the file's size.
+
+    One kind of record stops Arrow: the wrong number of fields and bytes that are not UTF-8 together.
+    The stream then ends with ArrowRowHandlerError, and `parser="python"` reads the same file with
+    Python's csv module (same records, line numbers and findings; about ten times slower), so that
+    record is quarantined like any other instead of the file being refused.
     """
     if path.suffix.lower() == ".parquet":
         return _stream_parquet(path)
@@ -90,6 +105,13 @@ def stream_records(path: Path, block_bytes: int = BLOCK_BYTES) -> RecordStream:
         raise ExtractError(f"{path}: unsupported file type {path.suffix!r} (expected .csv or .parquet)")
     header = _csv_header(path)
     schema = pa.schema([pa.field("source_line", pa.int64())] + [pa.field(c, pa.string()) for c in header])
+    if parser == "python":
+        malformed_py: list[tuple[int, str, str, str]] = []
+        return RecordStream(
+            path, header, schema, _python_batches(path, header, schema, malformed_py), malformed=malformed_py
+        )
+    if parser != "arrow":
+        raise ValueError(f"unknown parser {parser!r} (expected 'arrow' or 'python')")
     malformed: list[tuple[int, str, str, str]] = []
     reported: list[int] = []  # lines of records with the wrong number of fields, as Arrow reports them
 
@@ -135,9 +157,103 @@ def stream_records(path: Path, block_bytes: int = BLOCK_BYTES) -> RecordStream:
                 malformed.extend(not_utf8)
                 yield from text.to_batches()
         except pa.ArrowInvalid as exc:
+            # Our handler returns "skip" for every record it is given, so a field-count error reaching
+            # here is a record the handler was never given (its text is not UTF-8).
+            if _HANDLER_NOT_CALLED.search(str(exc)):
+                raise ArrowRowHandlerError(
+                    f"{path}: a record has the wrong number of fields and bytes that are not UTF-8 ({exc}); "
+                    "read it with parser='python'"
+                ) from exc
             raise ExtractError(f"{path}: cannot be parsed as UTF-8 CSV ({exc})") from exc
 
     return RecordStream(path, header, schema, batches(), malformed=malformed)
+
+
+_HANDLER_NOT_CALLED = re.compile(r"Expected \d+ columns, got \d+")
+
+
+def _quiet_handler_decode_errors(unraisable, _previous=sys.unraisablehook) -> None:
+    """Arrow's failed decode before our row handler is reported as an "exception ignored" traceback on
+    stderr; the stream raises ArrowRowHandlerError for it and ingest reads the file again, so that one
+    report is dropped. Everything else goes to the hook that was there before."""
+    handler = getattr(unraisable.object, "__qualname__", "")
+    if isinstance(unraisable.exc_value, UnicodeDecodeError) and handler.endswith(
+        "stream_records.<locals>.on_invalid"
+    ):
+        return
+    _previous(unraisable)
+
+
+sys.unraisablehook = _quiet_handler_decode_errors
+
+
+def _escaped(text: str) -> str:
+    """Text read with surrogateescape, its undecodable bytes written as \\xNN (as _as_text writes them)."""
+    return text.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+
+
+def _not_utf8(value: str) -> UnicodeDecodeError | None:
+    try:
+        value.encode("utf-8", "surrogateescape").decode("utf-8")
+    except UnicodeDecodeError as exc:
+        return exc
+    return None
+
+
+def _python_batches(
+    path: Path, header: list[str], schema: pa.Schema, malformed: list[tuple[int, str, str, str]]
+) -> Iterator[pa.RecordBatch]:
+    """The file's records read by Python's csv module, PYTHON_BATCH_ROWS at a time, with the Arrow path's
+    findings: a record with the wrong number of fields, or with a field that is not UTF-8, goes to
+    `malformed` with its text (bad bytes escaped); every other record is yielded with its line number
+    (the line it starts on). Bytes that are not UTF-8 are carried through as surrogates
+    (surrogateescape), so no record stops the reader. Blank lines hold no record, as for Arrow."""
+    width = len(header)
+    lines: list[int] = []
+    columns: list[list[str | None]] = [[] for _ in header]
+
+    def batch() -> pa.RecordBatch:
+        arrays = [pa.array(lines, pa.int64())] + [pa.array(c, pa.string()) for c in columns]
+        out = pa.RecordBatch.from_arrays(arrays, schema=schema)
+        lines.clear()
+        for c in columns:
+            c.clear()
+        return out
+
+    with path.open("rb") as raw:
+        text = io.TextIOWrapper(raw, encoding="utf-8", errors="surrogateescape", newline="")
+        reader = csv.reader(text)
+        try:
+            next(reader, None)  # the header, read by _csv_header
+            last = reader.line_num
+            for fields in reader:
+                line, last = last + 1, reader.line_num
+                if not fields:
+                    continue
+                if len(fields) != width:
+                    record = io.StringIO()
+                    csv.writer(record, lineterminator="").writerow(fields)
+                    reason = f"has {len(fields)} fields, the header has {width}"
+                    malformed.append((line, _escaped(record.getvalue()), reason, FIELD_COUNT_RULE))
+                    continue
+                try:
+                    "".join(fields).encode("utf-8")  # fails on the surrogates that stand for bad bytes
+                except UnicodeEncodeError:
+                    name, exc = next(
+                        (n, e) for n, v in zip(header, fields, strict=True) if (e := _not_utf8(v))
+                    )
+                    reason = f"field {name} is not UTF-8 (byte 0x{exc.object[exc.start]:02x} at position {exc.start + 1})"
+                    malformed.append((line, _escaped(",".join(fields)), reason, UTF8_RULE))
+                    continue
+                lines.append(line)
+                for column, value in zip(columns, fields, strict=True):
+                    column.append(value or None)  # only an empty field is null (the contract)
+                if len(lines) >= PYTHON_BATCH_ROWS:
+                    yield batch()
+        except csv.Error as exc:
+            raise ExtractError(f"{path}: line {reader.line_num}: cannot be parsed as CSV ({exc})") from exc
+    if lines:
+        yield batch()
 
 
 def _as_text(table: pa.Table, header: list[str]) -> tuple[pa.Table, list[tuple[int, str, str, str]]]:

@@ -77,12 +77,13 @@ def test_csv_keeps_leading_zeros_and_text_as_received(tmp_path):
     assert rec.table.column("a").to_pylist() == ["0042"] and rec.table.column("b").to_pylist() == ["001.50"]
 
 
-def test_a_record_that_is_not_utf8_is_set_aside_with_its_field_and_byte(tmp_path):
+@pytest.mark.parametrize("parser", ["arrow", "python"])
+def test_a_record_that_is_not_utf8_is_set_aside_with_its_field_and_byte(tmp_path, parser):
     # A Latin-1 byte (0xdf, sharp s) is not UTF-8 (RFC 3629): the record is returned as malformed, its
     # text kept with the byte escaped; the other records load.
     path = tmp_path / "latin.csv"
     path.write_bytes("a,b\nStra\xdfe,1\nok,2\n".encode("latin-1"))
-    rec = read_records(path)
+    rec = read_records(path, parser=parser)
     assert rec.table.column("a").to_pylist() == ["ok"] and rec.table.column("source_line").to_pylist() == [3]
     [(line, text, reason, rule)] = rec.malformed
     assert (line, text, rule) == (2, "Stra\\xdfe,1", "text_invalid_utf8")
@@ -204,6 +205,58 @@ def test_a_file_read_in_blocks_keeps_every_line_number(tmp_path, block_bytes):
     assert table.column("a").to_pylist() == [str(n) for n in good]  # each record's first field is its line
     assert [m[0] for m in stream.malformed] == bad
     assert stream.rows == len(good) and len(good) + len(bad) == 598
+
+
+def test_a_short_record_that_is_not_utf8_is_quarantined_by_the_python_reader(tmp_path):
+    """Found by the loader fuzz test: Arrow decodes a record with the wrong number of fields as UTF-8
+    before calling the row handler, and fails on a Latin-1 byte (0xe9, e-acute; not UTF-8 by RFC 3629).
+    The Arrow stream ends with ArrowRowHandlerError; Python's csv module reads the file: the record is
+    set aside for its field count, its text kept with the byte escaped, and the other records load."""
+    from ledgerband.tasks.landing.records import ArrowRowHandlerError, stream_records
+
+    path = tmp_path / "short.csv"
+    path.write_bytes(b"a,b,c\n1,2,3\n4,\xe9,6,7\n8,9,10\n")
+    stream = stream_records(path)
+    stream.reader().read_all()
+    with pytest.raises(ArrowRowHandlerError, match="short.csv: a record has the wrong number of fields"):
+        stream.finish()
+    rec = read_records(path, parser="python")
+    assert rec.table.column("source_line").to_pylist() == [2, 4]
+    assert rec.table.column("c").to_pylist() == ["3", "10"]
+    assert rec.malformed == [(3, "4,\\xe9,6,7", "has 4 fields, the header has 3", "record_field_count")]
+
+
+@pytest.mark.parametrize("seed", [11, 12, 13])
+def test_the_python_reader_finds_what_arrow_finds(tmp_path, seed):
+    """Reference: Arrow's CSV reader (an independent parser) on files it can read: the same records,
+    line numbers, field values (nulls included) and findings, whichever of the two reads the file."""
+    import random
+
+    rng = random.Random(seed)
+    lines = ["a,b,c"]
+    for n in range(2, 900):
+        kind = rng.random()
+        if kind < 0.05:
+            lines.append(f"{n},short")
+        elif kind < 0.08:
+            lines.append(f"{n},Stra\udcdfe,x")  # a Latin-1 byte (written as 0xdf below)
+        elif kind < 0.10:
+            lines.append(f"{n},a,b,extra")
+        elif kind < 0.15:
+            lines.append(f'{n},"quoted, with a comma",""')  # a quoted comma; a quoted empty field
+        elif kind < 0.20:
+            lines.append(f"{n},,")  # empty fields
+        else:
+            lines.append(f"{n},{'v' * rng.randint(0, 40)},z\r")  # CRLF line ends too
+    path = tmp_path / "both.csv"
+    path.write_bytes("\n".join(lines).encode("utf-8", errors="surrogateescape") + b"\n")
+
+    arrow = read_records(path)
+    python = read_records(path, parser="python")
+    assert python.table.equals(arrow.table)
+    assert [m[0] for m in python.malformed] == [m[0] for m in arrow.malformed]
+    assert [(m[2], m[3]) for m in python.malformed] == [(m[2], m[3]) for m in arrow.malformed]
+    assert arrow.table.num_rows + len(arrow.malformed) == 898
 
 
 def test_a_file_unreadable_part_way_ends_the_stream_with_its_error(tmp_path):
