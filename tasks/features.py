@@ -25,7 +25,7 @@ class FeatureBuild:
     """Row counts of every table the layers built (the grain is a rule of the feature suite)."""
 
     row_counts: dict[str, int]
-    staged: str = "rebuilt"  # what staging.transactions needed: 'appended N', 'unchanged' or 'rebuilt'
+    staged: str = "rebuilt"  # what staging.transactions needed: "appended N", "unchanged" or "rebuilt: <why>"
     buckets: int = 1  # per-customer files built on this many buckets of customers
     slowest_bucket_seconds: float | None = None
 

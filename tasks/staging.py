@@ -44,8 +44,33 @@ qualify row_number() over (partition by records.txn_id order by records.loaded_a
 """
 
 
+def _why_rebuild(
+    con: duckdb.DuckDBPyConnection,
+    accepted: dict[str, tuple],
+    held: dict[str, tuple],
+    new: list[str],
+) -> str | None:
+    """Why the table cannot be appended to (None when it can): the first reason found, naming the load."""
+    if not columns_of(con, TABLE):
+        return "no table yet"
+    if not held:
+        return "no loads recorded as held"
+    for load_id, (_, quarantined) in sorted(held.items()):
+        if load_id not in accepted:
+            return f"held load {load_id} is no longer accepted"
+        if accepted[load_id][1] != quarantined:
+            return f"held load {load_id} has {accepted[load_id][1]} records quarantined, {quarantined} when staged"
+        if accepted[load_id][0] != held[load_id][0]:
+            return f"held load {load_id} has another load time"
+    newest = max(at for at, _ in held.values())
+    for n in new:
+        if accepted[n][0] <= newest:
+            return f"new load {n} is older than a held one"
+    return None
+
+
 def refresh_transactions(con: duckdb.DuckDBPyConnection, model: SqlModel | None = None) -> str:
-    """Bring staging.transactions up to date: 'appended' (n new loads), 'unchanged' or 'rebuilt'."""
+    """Bring staging.transactions up to date: 'appended N', 'unchanged' or 'rebuilt: <why>'."""
     model = model or sql_model("staging", "transactions")
     con.execute(
         "create table if not exists staging.transaction_loads "
@@ -59,23 +84,18 @@ def refresh_transactions(con: duckdb.DuckDBPyConnection, model: SqlModel | None 
         ).fetchall()
     }
     new = sorted(set(accepted) - set(held))
-    appendable = (
-        bool(columns_of(con, TABLE))
-        and bool(held)
-        and all(accepted.get(load_id) == state for load_id, state in held.items())
-        and all(accepted[n][0] > max(at for at, _ in held.values()) for n in new)
-    )
+    why = _why_rebuild(con, accepted, held, new)
     with transaction(con):
-        if appendable and not new:
+        if why is None and not new:
             return "unchanged"
-        if appendable:
+        if why is None:
             con.execute(_APPEND, {"new_loads": new})
             outcome = f"appended {len(new)}"
         else:
             model.build(con)
             con.execute("delete from staging.transaction_loads")
             new = sorted(accepted)
-            outcome = "rebuilt"
+            outcome = f"rebuilt: {why}"
         con.executemany(
             "insert into staging.transaction_loads values (?, ?, ?)",
             [[n, accepted[n][0], accepted[n][1]] for n in new],

@@ -52,7 +52,7 @@ def _defined(con) -> list[tuple]:
 
 def test_appending_and_rebuilding_both_give_what_the_file_defines(con):
     _load(con, "L1", T0, [("T1", 10), ("T2", 20)])
-    assert refresh_transactions(con) == "rebuilt"  # nothing held yet
+    assert refresh_transactions(con) == "rebuilt: no table yet"
     assert _held(con) == _defined(con) and len(_held(con)) == 2
 
     # A later month: one new booking, and T2 again (validation quarantines a repeat; staging is the guard).
@@ -68,19 +68,19 @@ def test_appending_and_rebuilding_both_give_what_the_file_defines(con):
     con.execute(
         "insert into quarantine.ledger_lines values ('L1', 'L1.csv', 2, ['some_rule'], 'x', null, ?)", [T0]
     )
-    assert refresh_transactions(con) == "rebuilt"
+    assert refresh_transactions(con) == "rebuilt: held load L1 has 1 records quarantined, 0 when staged"
     assert _held(con) == _defined(con) and "T1" not in [r[0] for r in _held(con)]
 
     # The first month restated: its load is no longer accepted, so L2's T2 is now the first booking.
     con.execute("update ops.loads set status = 'restated' where load_id = 'L1'")
     _load(con, "L1R", T0 + timedelta(days=40), [("T1", 11)])
-    assert refresh_transactions(con) == "rebuilt"
+    assert refresh_transactions(con) == "rebuilt: held load L1 is no longer accepted"
     assert _held(con) == _defined(con)
     assert sorted((r[0], float(r[4])) for r in _held(con)) == [("T1", 11.0), ("T2", 99.0), ("T3", 30.0)]
 
     # A new load older than one held (out of order): rebuilt, so first booking stays by load time.
     _load(con, "L0", T0 - timedelta(days=30), [("T3", 3)])
-    assert refresh_transactions(con) == "rebuilt"
+    assert refresh_transactions(con) == "rebuilt: new load L0 is older than a held one"
     assert _held(con) == _defined(con)
     assert ("T3", 3.0) in [(r[0], float(r[4])) for r in _held(con)]
 
