@@ -27,7 +27,7 @@ import pandas as pd
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
-from ledgerband.tasks import codelists, loads, pushdown
+from ledgerband.tasks import codelists, loads, pushdown, txn_keys
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import LedgerbandError, ValidationEngineError
 from ledgerband.tasks.gates import QUALITY, Decision, enforce
@@ -223,7 +223,8 @@ class ValidationSummary:
 # The load's records with helper columns the suite's rules read (documented in the suite's meta):
 # - the parsed values, from the one parse of the text fields (staging.ledger_lines_parsed);
 # - txn_id_loaded_before: the txn_id came in an earlier file that was accepted, or was validated earlier
-#   in the same run, and was not quarantined there;
+#   in the same run, and was not quarantined there (accepted files through ops.accepted_txn_ids, see
+#   tasks/txn_keys.py);
 # - customer_in_reference: the customer_id is in the current customer reference file;
 # - balance_chain_broken: the account's balances do not chain in this extract. Each posting's balance
 #   before it (balance_after minus the signed amount) must be a balance the account reached: after
@@ -236,7 +237,7 @@ with this_load as (
     select loaded_at, run_id, period from ops.loads where load_id = $load_id
 ),
 earlier_loads as (
-    select l.load_id, l.period
+    select l.load_id, l.period, l.status
     from ops.loads as l, this_load as t
     where l.dataset = 'ledger' and l.load_id <> $load_id
         and (
@@ -246,12 +247,21 @@ earlier_loads as (
             or (l.status = 'loaded' and l.run_id = t.run_id and l.loaded_at < t.loaded_at)
         )
 ),
+this_txn_ids as (
+    select txn_id from raw.ledger_lines where load_id = $load_id
+),
 previous as (
-    select distinct r.txn_id
+    -- accepted loads: their keys (ops.accepted_txn_ids, brought in line with ops.loads just before)
+    select k.txn_id
+    from ops.accepted_txn_ids as k
+    where k.load_id <> $load_id and k.txn_id in (select txn_id from this_txn_ids)
+    union
+    -- files validated earlier in this same run, not yet accepted
+    select r.txn_id
     from raw.ledger_lines as r
     inner join earlier_loads as l on l.load_id = r.load_id
     anti join quarantine.ledger_lines as q on q.load_id = r.load_id and q.source_line = r.source_line
-    where r.txn_id in (select txn_id from raw.ledger_lines where load_id = $load_id)
+    where l.status = 'loaded' and r.txn_id in (select txn_id from this_txn_ids)
 ),
 reference as (
     select distinct customer_id from staging.customer_reference
@@ -454,6 +464,7 @@ def validate_load(
         "ledger_currencies": [settings.bands.currency],
     }
     con.register("code_lists", codelists.as_table())
+    txn_keys.sync(con)  # the accepted loads' txn_ids, in line with ops.loads, for txn_id_not_loaded_before
     failures: dict[int, dict[str, str]] = defaultdict(dict)  # line -> rule -> offending value
     kept: dict[str, dict] = {}  # rule -> GX result, merged over the chunks
 

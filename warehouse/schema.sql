@@ -79,6 +79,20 @@ create table if not exists quarantine.ledger_lines (
     quarantined_at timestamp not null
 );
 
+-- The txn_ids the repeated-booking rule (txn_id_not_loaded_before) compares a new extract with: every
+-- record of an accepted ledger load that was not quarantined. Narrow, so the check reads two columns
+-- instead of raw.ledger_lines joined to ops.loads and the quarantine. Kept by tasks/txn_keys.py, which
+-- records each held load with its quarantined count and brings the table in line with ops.loads
+-- before every check (new, restated or re-quarantined loads), so it is never trusted blindly.
+create table if not exists ops.accepted_txn_ids (
+    txn_id varchar not null,
+    load_id varchar not null
+);
+create table if not exists ops.accepted_txn_id_loads (
+    load_id varchar primary key,
+    quarantined bigint not null
+);
+
 -- Pay periods per year of each pay frequency, rewritten from settings (payroll.annualisation) before the
 -- layers are built: weekly 365.25/7, fortnightly 365.25/14, four-weekly 365.25/28 (a Julian year of
 -- 365.25 days), or the payroll convention 52/26/13; semi-monthly 24, monthly 12.

@@ -380,7 +380,7 @@ def _table(results: list[dict]) -> str:
 
 
 def test_monthly_flow_at_scale(tmp_path):
-    sizes = [int(s) for s in os.environ.get("BENCH_SIZES", "10000,100000").split(",")]
+    sizes = [int(s) for s in os.environ.get("BENCH_SIZES", "10000,100000").split(",") if s]
     months = int(os.environ.get("BENCH_MONTHS", "4"))  # the load window: payroll.lookback_months
     monthly = [int(s) for s in os.environ.get("BENCH_MONTHLY", "100000").split(",") if s]
     results = []
