@@ -58,6 +58,8 @@ REVIEWED = {
     ): "target is 'raw.ledger_lines' or 'raw.customers' (literals at "
     "the call sites); cols from contract.LEDGER_COLUMNS/CUSTOMER_COLUMNS",
     ("tasks/loads.py", ("table",)): "a literal tuple of three table names",
+    ("tasks/txn_keys.py", ("DEFINITION",)): "a constant of that module (the key table's definition); "
+    "the load ids go in as a bound parameter",
     ("tasks/publish.py", ("table", "model.query")): "table a literal at the call site; query read from a "
     "packaged SQL file",
     (
