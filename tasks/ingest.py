@@ -224,7 +224,10 @@ def load_customers(con: duckdb.DuckDBPyConnection, ctx: RunContext, path: Path) 
             loads.SKIPPED,
             notes=["same customer file already loaded; it is current again"],
         )
-    records = read_records(path)
+    try:
+        records = read_records(path)
+    except ArrowRowHandlerError:  # a short record that is not UTF-8: Python's reader names it below
+        records = read_records(path, parser="python")
     _check_customer_header(path, records.header)
     if records.malformed:
         line, _, reason, _ = records.malformed[0]

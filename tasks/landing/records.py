@@ -159,17 +159,19 @@ def stream_records(path: Path, block_bytes: int = BLOCK_BYTES, parser: str = "ar
         except pa.ArrowInvalid as exc:
             # Our handler returns "skip" for every record it is given, so a field-count error reaching
             # here is a record the handler was never given (its text is not UTF-8).
-            if _HANDLER_NOT_CALLED.search(str(exc)):
+            if found := _HANDLER_NOT_CALLED.search(str(exc)):
+                # Arrow's message quotes the record; ours names its place only (values stay in the file).
                 raise ArrowRowHandlerError(
-                    f"{path}: a record has the wrong number of fields and bytes that are not UTF-8 ({exc}); "
-                    "read it with parser='python'"
+                    f"{path}: the record Arrow counts as row {found['row']} has the wrong number of fields "
+                    "and bytes that are not UTF-8; Arrow's reader cannot hand it over (read the file with "
+                    "parser='python')"
                 ) from exc
             raise ExtractError(f"{path}: cannot be parsed as UTF-8 CSV ({exc})") from exc
 
     return RecordStream(path, header, schema, batches(), malformed=malformed)
 
 
-_HANDLER_NOT_CALLED = re.compile(r"Expected \d+ columns, got \d+")
+_HANDLER_NOT_CALLED = re.compile(r"Row #(?P<row>\d+): Expected \d+ columns, got \d+")
 
 
 def _quiet_handler_decode_errors(unraisable, _previous=sys.unraisablehook) -> None:

@@ -161,3 +161,20 @@ def test_duckdb_evaluates_every_rule_as_gx_does(name, con, tmp_path):
     )
     by_gx = _outcome(con, load.load_id, Settings(home=settings.home, quality={**limits, "engine": "gx"}))
     assert by_duckdb == by_gx
+
+
+def test_a_customer_file_with_a_short_record_that_is_not_utf8_is_refused_by_its_line(con, tmp_path):
+    """The customer file is refused on any malformed record (it is reference data, loaded whole); a
+    record both a field short and holding a Latin-1 byte (0xf6; not UTF-8 by RFC 3629) is named by its
+    line and field count like any other, its values kept out of the message."""
+    from ledgerband.tasks.errors import ExtractError
+
+    path = tmp_path / "customers.csv"
+    text = CATALOGUE.joinpath("bom", "customers.csv").read_text(encoding="utf-8")
+    header, first, second = text.splitlines()[:3]
+    short = ",".join(second.split(",")[:-1]).replace("South", "S\xf6uth")
+    path.write_bytes(f"{header}\n{first}\n{short}\n".encode("latin-1"))
+    ctx = RunContext.create("2026-10", settings=Settings(home=tmp_path / "state"), run_id="run-1")
+    with pytest.raises(ExtractError, match=r"customers.csv: line 3 has 4 fields, the header has 5") as e:
+        load_customers(con, ctx, path)
+    assert "S\\xf6uth" not in str(e.value) and "South" not in str(e.value)

@@ -218,8 +218,11 @@ def test_a_short_record_that_is_not_utf8_is_quarantined_by_the_python_reader(tmp
     path.write_bytes(b"a,b,c\n1,2,3\n4,\xe9,6,7\n8,9,10\n")
     stream = stream_records(path)
     stream.reader().read_all()
-    with pytest.raises(ArrowRowHandlerError, match="short.csv: a record has the wrong number of fields"):
+    with pytest.raises(
+        ArrowRowHandlerError, match="short.csv: the record Arrow counts as row 3 has the wrong"
+    ) as e:
         stream.finish()
+    assert "\\xe9" not in str(e.value) and "6,7" not in str(e.value)  # where, never the record's values
     rec = read_records(path, parser="python")
     assert rec.table.column("source_line").to_pylist() == [2, 4]
     assert rec.table.column("c").to_pylist() == ["3", "10"]
