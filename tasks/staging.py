@@ -30,17 +30,47 @@ where loads.dataset = 'ledger' and loads.status = 'accepted'
 """
 
 # The new loads' records (staging.ledger_transactions, the file's own input), minus txn_ids already held;
-# a txn_id repeated among them keeps its first booking, as in the file.
+# a txn_id repeated among them keeps its first booking, as in the file. Shaped like the file: only the
+# txn_ids held already or repeated are looked at twice, and `records` is not materialized (a CTE read
+# more than once is, by default, and that copies every typed record of the new loads).
 _APPEND = """
 insert into staging.transactions
-select * exclude (loaded_at)
-from staging.ledger_transactions as records
-where
-    records.load_id in (select unnest($new_loads))
-    and not exists (
-        select 1 from staging.transactions as held where held.txn_id is not distinct from records.txn_id
-    )
-qualify row_number() over (partition by records.txn_id order by records.loaded_at, records.load_id, records.source_line) = 1
+with
+
+records as not materialized (
+    select * from staging.ledger_transactions where load_id in (select unnest($new_loads))
+),
+
+held_again as (
+    select records.txn_id
+    from records
+    semi join staging.transactions as held on held.txn_id is not distinct from records.txn_id
+),
+
+repeated as (
+    select records.txn_id
+    from records
+    group by records.txn_id
+    having count(*) > 1
+),
+
+first_bookings as (
+    select records.*
+    from records
+    anti join held_again on records.txn_id is not distinct from held_again.txn_id
+    anti join repeated on records.txn_id is not distinct from repeated.txn_id
+    union all
+    select records.*
+    from records
+    semi join repeated on records.txn_id is not distinct from repeated.txn_id
+    anti join held_again on records.txn_id is not distinct from held_again.txn_id
+    qualify
+        row_number() over (
+            partition by records.txn_id order by records.loaded_at, records.load_id, records.source_line
+        ) = 1
+)
+
+select * exclude (loaded_at) from first_bookings
 """
 
 

@@ -94,3 +94,20 @@ def test_a_load_not_yet_accepted_is_not_appended(con):
     con.execute("update ops.loads set status = 'accepted' where load_id = 'L2'")
     assert refresh_transactions(con) == "appended 1"
     assert _held(con) == _defined(con)
+
+
+def test_a_txn_id_repeated_among_new_loads_keeps_its_first_booking_when_appended(con):
+    _load(con, "L1", T0, [("T1", 10), ("T2", 20)])
+    refresh_transactions(con)
+    # Two new loads at once: T5 twice in L2 and again in L3, T2 (held) again in L3, T6 only in L3.
+    _load(con, "L2", T0 + timedelta(days=30), [("T5", 50), ("T5", 51), ("T4", 40)])
+    _load(con, "L3", T0 + timedelta(days=31), [("T5", 52), ("T2", 21), ("T6", 60)])
+    assert refresh_transactions(con) == "appended 2"
+    assert _held(con) == _defined(con)
+    assert sorted((r[0], float(r[4])) for r in _held(con)) == [
+        ("T1", 10.0),
+        ("T2", 20.0),
+        ("T4", 40.0),
+        ("T5", 50.0),
+        ("T6", 60.0),
+    ]

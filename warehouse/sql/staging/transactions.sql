@@ -8,7 +8,7 @@
 
 with
 
-records as (
+records as not materialized (
     select * from staging.ledger_transactions
 ),
 
