@@ -88,3 +88,25 @@ def test_age_at_window_end_matches_dateutil(con, ledger, birth):
     ledger.load(customers=[("C1", birth, "North Reach")])
     expected = relativedelta(date(2026, 10, 31), date.fromisoformat(birth)).years
     assert _features(con)["C1"]["age_years"] == expected
+
+
+def test_median_balance_equals_numpy_median_for_odd_and_even_counts(con, ledger):
+    """Reference: numpy.median (the mean of the middle two values for an even count).
+
+    Balances in cents chosen at random, so middle pairs often differ by an odd number of cents and the
+    median falls on a half cent (DuckDB's median() on DECIMAL rounds that to a cent; ours must not).
+    """
+    import numpy as np
+
+    rng = np.random.default_rng(20261203)
+    expected = {}
+    for i, n in enumerate([1, 2, 3, 4, 7, 10, 25, 26]):
+        customer = f"C{i}"
+        cents = rng.integers(-50_000, 500_000, size=n)
+        for k, c in enumerate(cents):
+            ledger.add(customer, date(2026, 8, 1) + relativedelta(days=int(k)), 10.0, balance_after=c / 100)
+        expected[customer] = float(np.median(cents / 100))
+    ledger.load()
+    f = _features(con)
+    assert {c: f[c]["median_balance"] for c in expected} == pytest.approx(expected, abs=1e-9)
+    assert any(round(v * 100) != v * 100 for v in expected.values())  # a half cent is among the cases
