@@ -20,7 +20,7 @@ from typing import Any, TypeVar
 from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import GateStopped
 from ledgerband.tasks.gates import decisions_of_run
-from ledgerband.tasks.warehouse import apply_schema, open_warehouse
+from ledgerband.tasks.warehouse import apply_schema, open_warehouse, resource_error
 
 T = TypeVar("T")
 
@@ -98,6 +98,10 @@ class RunLog:
             raise
         except Exception as exc:
             record["status"] = "failed"
+            advice = resource_error(exc, self.ctx.settings.scale, self.ctx.warehouse)
+            if advice is not None:  # out of memory or spill space: say which setting to change
+                record["detail"] = f"{type(exc).__name__}: {advice}"
+                raise advice from exc
             record["detail"] = f"{type(exc).__name__}: {exc}"
             raise
         else:

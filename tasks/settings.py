@@ -272,6 +272,12 @@ class ScaleSettings(_Section):
     default, 80% of the machine's memory. Measured at 100k customers x 4 months: see DEVELOPERS.md."""
     threads: int = Field(0, ge=0)
     """DuckDB's threads; 0: one per core."""
+    temp_directory: str = ""
+    """Where DuckDB spills what does not fit memory_limit; empty: beside the warehouse (<warehouse>.tmp).
+    A first run of a million customers spilled several GB at the 2GB limit: point this at a roomy disk."""
+    max_temp_size: str = Field("", pattern=r"^(\d+(\.\d+)?\s*(KB|MB|GB|TB|KiB|MiB|GiB|TiB)|)$")
+    """Most DuckDB may spill (its max_temp_directory_size); empty: DuckDB's default, 90% of the space free
+    on that disk. Past it a stage fails with advice, before the disk itself is full."""
     bucket_customers: int = Field(25_000, ge=100)
     """The per-customer SQL layers (pay calendars, salary streams, features) run on buckets of about this
     many customers each, split by a hash of customer_id: memory is bounded by a bucket, not the bank."""

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import graphlib
 import re
+import shutil
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -44,7 +45,51 @@ def duckdb_limits(scale: ScaleSettings | None) -> dict[str, Any]:
         config["memory_limit"] = scale.memory_limit
     if scale is not None and scale.threads:
         config["threads"] = scale.threads
+    if scale is not None and scale.temp_directory:
+        config["temp_directory"] = scale.temp_directory
+    if scale is not None and scale.max_temp_size:
+        config["max_temp_directory_size"] = scale.max_temp_size
     return config
+
+
+_DISK_SIGNS = ("no space left on device", "max_temp_directory_size", "disk quota exceeded")
+
+
+def resource_error(
+    exc: BaseException, scale: ScaleSettings | None, warehouse: Path
+) -> LedgerbandError | None:
+    """What to do when DuckDB ran out of memory or of spill space, as an error the operator can act on.
+
+    None for any other exception. DuckDB's own messages suggest fewer threads or insertion order off;
+    the settings that matter here are scale.memory_limit, scale.temp_directory and scale.max_temp_size.
+    """
+    if not isinstance(exc, duckdb.OutOfMemoryException | duckdb.IOException):
+        return None
+    first_line = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    limit = (scale.memory_limit if scale else "") or "DuckDB's default (80% of memory)"
+    spill = Path(scale.temp_directory) if scale and scale.temp_directory else Path(f"{warehouse}.tmp")
+    if any(sign in str(exc).lower() for sign in _DISK_SIGNS):
+        try:
+            probe = spill if spill.exists() else spill.parent
+            usage = shutil.disk_usage(probe)
+            room = f"{usage.free / 2**30:.1f} GiB free of {usage.total / 2**30:.1f} GiB there now"
+        except OSError:
+            room = "free space unknown"
+        cap = (scale.max_temp_size if scale else "") or "DuckDB's default, 90% of the free space"
+        return LedgerbandError(
+            f"the warehouse ran out of room to spill to disk ({first_line}). DuckDB spills what does not fit "
+            f"scale.memory_limit = {limit} into {spill} ({room}; scale.max_temp_size = {cap}). Free space "
+            "there, point scale.temp_directory at a larger disk, or raise scale.memory_limit "
+            "(README, 'Bigger banks')."
+        )
+    if isinstance(exc, duckdb.OutOfMemoryException):
+        return LedgerbandError(
+            f"the warehouse ran out of memory ({first_line}) under scale.memory_limit = {limit}: some work "
+            "(a sort or join is spilled; a few aggregates cannot be) needed more than that. Raise "
+            "scale.memory_limit (LEDGERBAND_SCALE__MEMORY_LIMIT) within the machine's memory, or lower "
+            "scale.bucket_customers if the features stage failed (README, 'Bigger banks')."
+        )
+    return None
 
 
 def connect(
