@@ -176,6 +176,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
             unreadable=int(unreadable) + len(records.malformed),
         )
         decision = reconcile(manifest, counts)
+        notes = list(decision.figures["notes"]) + ([SLOW_READ_NOTE] if read_again else [])
         loads.register(
             con,
             loads.NewLoad(
@@ -193,7 +194,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
                 debit_total=counts.debit_total,
             ),
             status=loads.LOADED if decision.passed else loads.REJECTED,
-            reason="; ".join(decision.figures["problems"] + decision.figures["notes"]) or None,
+            reason="; ".join(decision.figures["problems"] + notes) or None,
         )
     enforce(con, ctx, decision)
     return loads.LoadResult(
@@ -204,7 +205,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
         counts.rows_in_file,
         records.rows,
         len(records.malformed),
-        list(decision.figures["notes"]) + ([SLOW_READ_NOTE] if read_again else []),
+        notes,
     )
 
 

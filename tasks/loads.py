@@ -175,3 +175,22 @@ def has_accepted_customers(con: duckdb.DuckDBPyConnection) -> bool:
     return bool(
         scalar(con, "select count(*) from ops.loads where dataset = ? and status = ?", [CUSTOMERS, ACCEPTED])
     )
+
+
+def accepted_ledger_loads(con: duckdb.DuckDBPyConnection) -> dict[str, tuple[datetime, int]]:
+    """Each accepted ledger load: load_id -> (loaded_at, records quarantined now).
+
+    What a table derived from accepted loads (staging.transactions, ops.accepted_txn_ids) compares with
+    the loads it holds, to know whether it is still what its definition says.
+    """
+    rows = con.execute(
+        """
+        select loads.load_id, loads.loaded_at, count(q.load_id)::bigint
+        from ops.loads as loads
+        left join quarantine.ledger_lines as q on q.load_id = loads.load_id
+        where loads.dataset = ? and loads.status = ?
+        group by loads.load_id, loads.loaded_at
+        """,
+        [LEDGER, ACCEPTED],
+    ).fetchall()
+    return {load_id: (loaded_at, int(quarantined)) for load_id, loaded_at, quarantined in rows}

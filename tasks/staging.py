@@ -16,18 +16,10 @@ from __future__ import annotations
 
 import duckdb
 
+from ledgerband.tasks.loads import accepted_ledger_loads
 from ledgerband.tasks.warehouse import SqlModel, columns_of, sql_model, transaction
 
 TABLE = "staging.transactions"
-
-_ACCEPTED = """
-select
-    loads.load_id,
-    loads.loaded_at,
-    (select count(*) from quarantine.ledger_lines as q where q.load_id = loads.load_id)::bigint as quarantined
-from ops.loads as loads
-where loads.dataset = 'ledger' and loads.status = 'accepted'
-"""
 
 # The new loads' records (staging.ledger_transactions, the file's own input), minus txn_ids already held;
 # a txn_id repeated among them keeps its first booking, as in the file. Shaped like the file: only the
@@ -106,7 +98,7 @@ def refresh_transactions(con: duckdb.DuckDBPyConnection, model: SqlModel | None 
         "create table if not exists staging.transaction_loads "
         "(load_id varchar primary key, loaded_at timestamp not null, quarantined bigint not null)"
     )
-    accepted = {r[0]: (r[1], r[2]) for r in con.execute(_ACCEPTED).fetchall()}
+    accepted = accepted_ledger_loads(con)
     held = {
         r[0]: (r[1], r[2])
         for r in con.execute(

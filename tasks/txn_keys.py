@@ -17,15 +17,8 @@ from __future__ import annotations
 
 import duckdb
 
+from ledgerband.tasks.loads import accepted_ledger_loads
 from ledgerband.tasks.warehouse import transaction
-
-# Each accepted ledger load with its quarantined count now.
-_ACCEPTED = """
-select loads.load_id,
-    (select count(*) from quarantine.ledger_lines as q where q.load_id = loads.load_id)::bigint
-from ops.loads as loads
-where loads.dataset = 'ledger' and loads.status = 'accepted'
-"""
 
 # The definition: the txn_ids of the records of these loads that were not quarantined.
 DEFINITION = """
@@ -38,7 +31,7 @@ where r.load_id in (select unnest($loads)) and r.txn_id is not null
 
 def sync(con: duckdb.DuckDBPyConnection) -> tuple[int, int]:
     """Bring ops.accepted_txn_ids in line with ops.loads; (loads whose keys were written, loads dropped)."""
-    accepted = dict(con.execute(_ACCEPTED).fetchall())
+    accepted = {load_id: quarantined for load_id, (_, quarantined) in accepted_ledger_loads(con).items()}
     held = dict(con.execute("select load_id, quarantined from ops.accepted_txn_id_loads").fetchall())
     stale = sorted(load_id for load_id, q in held.items() if accepted.get(load_id) != q)
     missing = sorted(load_id for load_id, q in accepted.items() if held.get(load_id) != q)

@@ -96,6 +96,9 @@ def test_bad_input(name, con, tmp_path):
         assert reason.startswith(f"line {line}: ")  # … the line …
         for rule in rules:
             assert rule in reason  # … and every rule broken
+    reason = con.execute("select reason from ops.loads where load_id = ?", [load.load_id]).fetchall()[0][0]
+    for part in case.get("load_reason", []):
+        assert part in (reason or ""), f"{name}: {part!r} not in ops.loads.reason {reason!r}"
     # No record lost: every record read is staged or quarantined.
     run_sql_file(con, "staging", "transactions")
     staged = con.execute(
