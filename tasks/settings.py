@@ -134,6 +134,9 @@ class TrainSettings(_Section):
     tree_min_samples_leaf: int = Field(20, ge=1)
     forest_trees: int = Field(60, ge=1)
     forest_max_samples: float = Field(0.5, gt=0, le=1)
+    forest_max_tree_rows: int = Field(100_000, ge=100)
+    """Each forest tree is grown on at most this many rows (its bootstrap draw; common practice to bound
+    a forest's cost). Changes nothing below 2 x this many labelled customers at forest_max_samples 0.5."""
     boosting_max_iter: int = Field(200, ge=1)
     log_target: bool = False
     """Fit every model on log(1 + income) and transform estimates back (multiplicative errors)."""

@@ -156,6 +156,7 @@ class TrainSummary:
     customers_needed: int | None = None
     curve_flattened: bool | None = None
     curve_advice: str | None = None
+    forest_tree_rows: int | None = None  # the champion forest's trees were grown on at most this many rows
     note: str | None = None
 
     def figures(self) -> dict:
@@ -250,6 +251,8 @@ def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainS
     # The champion on every labelled customer: the saved model and the conformal intervals.
     conformal = fit_conformal(candidates[champion], X, y, settings)
     pipe = final_model(clone(candidates[champion]).fit(X, y))
+    if champion == "random_forest" and max(round(len(y) * t.forest_max_samples), 1) > t.forest_max_tree_rows:
+        summary.forest_tree_rows = t.forest_max_tree_rows
     out = predict_intervals(conformal, frame[features])
 
     now = datetime.now()

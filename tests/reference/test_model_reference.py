@@ -226,3 +226,28 @@ def test_the_forest_estimates_the_same_on_every_call_and_as_scikit_learn_in_one_
     expected = reference.predict(X)
     assert all(np.array_equal(ours.predict(X), expected) for _ in range(10))
     assert ours.n_jobs == 2  # predicting leaves the fitted forest's settings as they were
+
+
+def test_the_forest_grows_each_tree_on_at_most_max_tree_rows_and_is_otherwise_scikit_learns():
+    """Reference: scikit-learn's RandomForestRegressor with max_samples given as that number of rows.
+    Above the bound our forest is that forest exactly (same bootstrap draws, same estimates); below it,
+    the bound changes nothing. Each tree's root holds its bootstrap draw (weighted_n_node_samples)."""
+    from sklearn.base import clone
+    from sklearn.datasets import make_regression
+    from sklearn.ensemble import RandomForestRegressor
+
+    from ledgerband.tasks.models import SteadyForest
+
+    X, y = make_regression(2000, 8, noise=10, random_state=0)
+    args = {"n_estimators": 20, "min_samples_leaf": 5, "random_state": 3, "n_jobs": 1}
+    bounded = SteadyForest(max_samples=0.5, max_tree_rows=300, **args).fit(X, y)
+    reference = RandomForestRegressor(max_samples=300, **args).fit(X, y)
+    assert {t.tree_.weighted_n_node_samples[0] for t in bounded.estimators_} == {300.0}
+    assert np.array_equal(bounded.predict(X), reference.predict(X))
+    assert bounded.max_samples == 0.5 and bounded.tree_rows(2000) == 300  # the setting is left as it was
+    assert clone(bounded).get_params()["max_tree_rows"] == 300  # a parameter scikit-learn sees
+
+    loose = SteadyForest(max_samples=0.5, max_tree_rows=5000, **args).fit(X, y)
+    plain = RandomForestRegressor(max_samples=0.5, **args).fit(X, y)
+    assert {t.tree_.weighted_n_node_samples[0] for t in loose.estimators_} == {1000.0}
+    assert np.array_equal(loose.predict(X), plain.predict(X))
