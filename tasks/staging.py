@@ -16,54 +16,47 @@ from __future__ import annotations
 
 import duckdb
 
+from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.loads import accepted_ledger_loads
 from ledgerband.tasks.warehouse import SqlModel, columns_of, sql_model, transaction
 
 TABLE = "staging.transactions"
 
-# The new loads' records (staging.ledger_transactions, the file's own input), minus txn_ids already held;
-# a txn_id repeated among them keeps its first booking, as in the file. Shaped like the file: only the
-# txn_ids held already or repeated are looked at twice, and `records` is not materialized (a CTE read
-# more than once is, by default, and that copies every typed record of the new loads).
-_APPEND = """
-insert into staging.transactions
-with
-
-records as not materialized (
-    select * from staging.ledger_transactions where load_id in (select unnest($new_loads))
-),
-
-held_again as (
-    select records.txn_id
-    from records
-    semi join staging.transactions as held on held.txn_id is not distinct from records.txn_id
-),
-
-repeated as (
-    select records.txn_id
-    from records
-    group by records.txn_id
-    having count(*) > 1
-),
-
-first_bookings as (
-    select records.*
-    from records
-    anti join held_again on records.txn_id is not distinct from held_again.txn_id
-    anti join repeated on records.txn_id is not distinct from repeated.txn_id
-    union all
-    select records.*
-    from records
-    semi join repeated on records.txn_id is not distinct from repeated.txn_id
-    anti join held_again on records.txn_id is not distinct from held_again.txn_id
-    qualify
-        row_number() over (
-            partition by records.txn_id order by records.loaded_at, records.load_id, records.source_line
-        ) = 1
-)
-
-select * exclude (loaded_at) from first_bookings
+# The file reads `records` from this query; an append reads, in its place, only the new loads' records
+# whose txn_id the table does not hold yet (the earlier booking is the first). The rest of the file
+# (a txn_id repeated among them keeps its first booking) is the same text both ways.
+_RECORDS = "records as not materialized (\n    select * from staging.ledger_transactions\n)"
+_NEW_RECORDS = """records as not materialized (
+    select new.*
+    from staging.ledger_transactions as new
+    anti join temp.held_again on new.txn_id is not distinct from held_again.txn_id
+    where new.load_id in (select unnest($new_loads))
+)"""
+# The new loads' txn_ids the table holds already: few or none (validation quarantines a repeated
+# booking), found in one pass so the held table is hashed once, not once per read of `records`.
+_HELD_AGAIN = """
+create or replace temp table held_again as
+select distinct new.txn_id
+from staging.ledger_transactions as new
+semi join staging.transactions as held on new.txn_id is not distinct from held.txn_id
+where new.load_id in (select unnest($new_loads))
 """
+
+
+def append_query(model: SqlModel) -> str:
+    """The file's query reading only the new loads' records (after `_HELD_AGAIN` has run)."""
+    if model.query.count(_RECORDS) != 1:
+        raise LedgerbandError(
+            f"sql/staging/transactions.sql must define `records` once as {_RECORDS!r}: the monthly append "
+            "reads the new loads through the same file in its place"
+        )
+    return model.query.replace(_RECORDS, _NEW_RECORDS)
+
+
+def _append(con: duckdb.DuckDBPyConnection, model: SqlModel, new: list[str]) -> None:
+    con.execute(_HELD_AGAIN, {"new_loads": new}).fetchall()
+    con.execute(f"insert into {TABLE}\n{append_query(model)}", {"new_loads": new}).fetchall()
+    con.execute("drop table temp.held_again").fetchall()
 
 
 def _why_rebuild(
@@ -111,7 +104,7 @@ def refresh_transactions(con: duckdb.DuckDBPyConnection, model: SqlModel | None 
         if why is None and not new:
             return "unchanged"
         if why is None:
-            con.execute(_APPEND, {"new_loads": new})
+            _append(con, model, new)
             outcome = f"appended {len(new)}"
         else:
             model.build(con)

@@ -33,6 +33,8 @@ REVIEWED = {
         "tasks/buckets.py",
         ("model.relation", "files"),
     ): "our SQL file's relation; files made literals by sql_literal",
+    ("tasks/staging.py", ("TABLE", "append_query(model)")): "TABLE is a constant; the query is our package's "
+    "SQL file with one constant CTE put in place of another (values bound as $new_loads)",
     (
         "tasks/contract.py",
         ("catalog", "table", "sql_literal(comment)"),
