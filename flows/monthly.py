@@ -34,6 +34,7 @@ from ledgerband.tasks.settings import get_settings
 from ledgerband.tasks.train import TrainSummary, train_task
 from ledgerband.tasks.validate import validate_features_task, validate_load_task
 from ledgerband.tasks.validation_docs import keep_task as keep_validation_results_task
+from ledgerband.tasks.warehouse import FEATURES_STAGE
 
 
 @dataclass(frozen=True)
@@ -108,7 +109,7 @@ def _run(ctx: RunContext) -> RunResult:
         checkpoint("after_load")
         quality = log.run("validate", validate, ctx, loaded, detail=lambda d: d.reason)
         log.run(
-            "features",
+            FEATURES_STAGE,
             features,
             ctx,
             detail=lambda b: (

@@ -142,18 +142,24 @@ class SteadyForest(RandomForestRegressor):
         )
         self.max_tree_rows = max_tree_rows
 
-    def tree_rows(self, n_rows: int) -> int:
-        """How many rows each tree is grown on for a fit on n_rows (scikit-learn's rule, then the bound)."""
+    def drawn_rows(self, n_rows: int) -> int:
+        """How many rows scikit-learn's own rule draws for each tree of a fit on n_rows."""
         if not self.bootstrap:
             return n_rows
         m = self.max_samples
-        rows = n_rows if m is None else (max(round(n_rows * m), 1) if isinstance(m, float) else int(m))
+        return n_rows if m is None else (max(round(n_rows * m), 1) if isinstance(m, float) else int(m))
+
+    def tree_rows(self, n_rows: int) -> int:
+        """How many rows each tree is grown on for a fit on n_rows (scikit-learn's rule, then the bound)."""
+        rows = self.drawn_rows(n_rows)
         return min(rows, self.max_tree_rows) if self.max_tree_rows else rows
 
     def fit(self, X, y, sample_weight=None):
         fraction = self.max_samples
         rows = self.tree_rows(len(X))
-        if self.max_tree_rows and self.bootstrap and rows == self.max_tree_rows:
+        # The fitted forest says whether the bound applied (the report reads it): the row count, or None.
+        self.bounded_tree_rows_ = rows if rows < self.drawn_rows(len(X)) else None
+        if self.bounded_tree_rows_:
             self.max_samples = rows  # an absolute count for this fit, then the setting as it was
         try:
             return super().fit(X, y, sample_weight=sample_weight)
@@ -423,6 +429,13 @@ def skill(comparison: Comparison, confidence: float) -> Skill:
         per_split_mae_skill=mae_skill.tolist(),
         per_split_band_skill=band_skill.tolist(),
     )
+
+
+def bounded_tree_rows(pipe: Pipeline) -> int | None:
+    """The rows each tree of a fitted forest champion was grown on, when `max_tree_rows` bound them."""
+    model = pipe.named_steps["model"]
+    model = getattr(model, "regressor_", model)  # behind log_target's TransformedTargetRegressor
+    return getattr(model, "bounded_tree_rows_", None) if isinstance(model, SteadyForest) else None
 
 
 def final_model(pipe: Pipeline) -> Pipeline:

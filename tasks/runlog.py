@@ -98,7 +98,7 @@ class RunLog:
             raise
         except Exception as exc:
             record["status"] = "failed"
-            advice = resource_error(exc, self.ctx.settings.scale, self.ctx.warehouse)
+            advice = resource_error(exc, self.ctx.settings.scale, self.ctx.warehouse, name)
             if advice is not None:  # out of memory or spill space: say which setting to change
                 record["detail"] = f"{type(exc).__name__}: {advice}"
                 raise advice from exc

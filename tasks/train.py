@@ -41,6 +41,7 @@ from ledgerband.tasks.models import (
     BASELINES,
     Comparison,
     Skill,
+    bounded_tree_rows,
     compare,
     comparison_sample,
     final_model,
@@ -251,8 +252,7 @@ def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainS
     # The champion on every labelled customer: the saved model and the conformal intervals.
     conformal = fit_conformal(candidates[champion], X, y, settings)
     pipe = final_model(clone(candidates[champion]).fit(X, y))
-    if champion == "random_forest" and max(round(len(y) * t.forest_max_samples), 1) > t.forest_max_tree_rows:
-        summary.forest_tree_rows = t.forest_max_tree_rows
+    summary.forest_tree_rows = bounded_tree_rows(pipe)
     out = predict_intervals(conformal, frame[features])
 
     now = datetime.now()

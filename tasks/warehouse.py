@@ -55,13 +55,18 @@ def duckdb_limits(scale: ScaleSettings | None) -> dict[str, Any]:
 _DISK_SIGNS = ("no space left on device", "max_temp_directory_size", "disk quota exceeded")
 
 
+# The monthly flow's stage that builds the per-customer files bucket by bucket (its name in ops.runs).
+FEATURES_STAGE = "features"
+
+
 def resource_error(
-    exc: BaseException, scale: ScaleSettings | None, warehouse: Path
+    exc: BaseException, scale: ScaleSettings | None, warehouse: Path, stage: str | None = None
 ) -> LedgerbandError | None:
     """What to do when DuckDB ran out of memory or of spill space, as an error the operator can act on.
 
     None for any other exception. DuckDB's own messages suggest fewer threads or insertion order off;
-    the settings that matter here are scale.memory_limit, scale.temp_directory and scale.max_temp_size.
+    the settings that matter here are scale.memory_limit, scale.temp_directory and scale.max_temp_size,
+    and, when the run's `stage` is the one that builds features per bucket, scale.bucket_customers.
     """
     if not isinstance(exc, duckdb.OutOfMemoryException | duckdb.IOException):
         return None
@@ -83,11 +88,18 @@ def resource_error(
             "(README, 'Bigger banks')."
         )
     if isinstance(exc, duckdb.OutOfMemoryException):
+        buckets = (
+            f", or lower scale.bucket_customers (now {scale.bucket_customers:,}): the {stage} stage builds "
+            "the per-customer files one bucket of customers at a time"
+            if stage == FEATURES_STAGE and scale
+            else ""
+        )
+        where = f"in the {stage} stage " if stage else ""
         return LedgerbandError(
-            f"the warehouse ran out of memory ({first_line}) under scale.memory_limit = {limit}: some work "
-            "(a sort or join is spilled; a few aggregates cannot be) needed more than that. Raise "
-            "scale.memory_limit (LEDGERBAND_SCALE__MEMORY_LIMIT) within the machine's memory, or lower "
-            "scale.bucket_customers if the features stage failed (README, 'Bigger banks')."
+            f"the warehouse ran out of memory {where}({first_line}) under scale.memory_limit = {limit}: some "
+            "work (a sort or join is spilled; a few aggregates cannot be) needed more than that. Raise "
+            f"scale.memory_limit (LEDGERBAND_SCALE__MEMORY_LIMIT) within the machine's memory{buckets} "
+            "(README, 'Bigger banks')."
         )
     return None
 

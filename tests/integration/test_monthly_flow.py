@@ -649,3 +649,30 @@ def test_no_customer_level_value_reaches_alerts_artifacts_or_reports(home, first
     planted = f"<td>{min(ids)}</td> paid {float(min(amounts)):,.2f}"  # the scan finds what it looks for
     assert leaks({"planted.html": planted}, ids, amounts) == {"planted.html": [min(ids), min(amounts)]}
     assert leaks(texts, ids, amounts) == {}
+
+
+def test_a_forest_champion_above_its_tree_row_bound_says_so_in_the_report(home, first_run, tmp_path):
+    """`train.forest_max_tree_rows` binds only at large banks; here it is set below this bank's draw.
+    The fitted forest reports the bound, the summary carries it and the report's line states it."""
+    from ledgerband.tasks.context import RunContext
+    from ledgerband.tasks.report import gather, render
+    from ledgerband.tasks.settings import Settings
+    from ledgerband.tasks.train import train_and_predict
+    from ledgerband.tasks.warehouse import open_warehouse
+
+    shutil.copy(home / "warehouse.duckdb", tmp_path / "warehouse.duckdb")
+    bounded = {"candidates": ["random_forest"], "forest_trees": 10, "forest_max_tree_rows": 100}
+    for train, expected in ((bounded, 100), ({**bounded, "forest_max_tree_rows": 100000}, None)):
+        settings = Settings(home=tmp_path, train=train)
+        ctx = RunContext.create("2026-10", settings=settings, run_id=first_run.run_id)
+        with open_warehouse(ctx.warehouse, settings.scale) as con:
+            summary = train_and_predict(con, ctx)
+            context = gather(con, ctx)
+        assert summary.champion == "random_forest" and summary.n_labelled * 0.5 > 100
+        assert summary.forest_tree_rows == expected
+        accuracy = next(
+            d for d in context["decisions"] if d["gate"] == "accuracy" and d["check_name"] == "accuracy"
+        )
+        accuracy["figures"] = summary.figures()  # the gate writes these figures as they are
+        html = render(context)
+        assert ("the forest's trees each grown on at most 100 of them" in html) == (expected is not None)

@@ -245,9 +245,11 @@ def test_the_forest_grows_each_tree_on_at_most_max_tree_rows_and_is_otherwise_sc
     assert {t.tree_.weighted_n_node_samples[0] for t in bounded.estimators_} == {300.0}
     assert np.array_equal(bounded.predict(X), reference.predict(X))
     assert bounded.max_samples == 0.5 and bounded.tree_rows(2000) == 300  # the setting is left as it was
+    assert bounded.bounded_tree_rows_ == 300  # what the report reads
     assert clone(bounded).get_params()["max_tree_rows"] == 300  # a parameter scikit-learn sees
 
     loose = SteadyForest(max_samples=0.5, max_tree_rows=5000, **args).fit(X, y)
     plain = RandomForestRegressor(max_samples=0.5, **args).fit(X, y)
     assert {t.tree_.weighted_n_node_samples[0] for t in loose.estimators_} == {1000.0}
     assert np.array_equal(loose.predict(X), plain.predict(X))
+    assert loose.bounded_tree_rows_ is None

@@ -13,7 +13,7 @@ from ledgerband.tasks.context import RunContext
 from ledgerband.tasks.errors import LedgerbandError
 from ledgerband.tasks.runlog import RunLog
 from ledgerband.tasks.settings import ScaleSettings, Settings
-from ledgerband.tasks.warehouse import duckdb_limits, resource_error
+from ledgerband.tasks.warehouse import FEATURES_STAGE, duckdb_limits, resource_error
 
 
 def _duckdb_error(tmp_path, config: dict, sql: str) -> BaseException:
@@ -53,6 +53,11 @@ def test_memory_that_cannot_spill_names_the_memory_limit(tmp_path):
     assert isinstance(advice, LedgerbandError)
     assert "ran out of memory" in str(advice) and "scale.memory_limit = 64MB" in str(advice)
     assert "SET threads" not in str(advice)  # DuckDB's own suggestions are not ours to repeat
+    # The bucket size is named only where it helps: the stage that builds features bucket by bucket.
+    assert "bucket_customers" not in str(advice)
+    assert "bucket_customers" not in str(resource_error(exc, scale, tmp_path / "w.duckdb", "validate"))
+    in_features = str(resource_error(exc, scale, tmp_path / "w.duckdb", FEATURES_STAGE))
+    assert "in the features stage" in in_features and "scale.bucket_customers (now 25,000)" in in_features
 
 
 def test_other_errors_are_left_alone(tmp_path):
