@@ -3,7 +3,9 @@
 -- Key: customer_id, payer_id, booking_date, pattern, pattern_param, slot.
 -- Reads: intermediate.payroll_credits, intermediate.pay_calendars.
 -- Scope: per customer (built per bucket of customers).
--- Only streams of two or more payments, and only the calendar families their mean gap allows.
+-- Parameters: $max_missed_runs.
+-- Only streams of two or more payments, only the calendar families their mean gap allows, and only the
+-- calendars that could be a fit (`possible` below).
 -- recency: 1 for the latest credit a calendar matches in the stream, 2 for the one before, …
 -- Materialized as a table so that intermediate.pay_schedule_fits aggregates a plain table (at 100k
 -- customers, one query over the whole chain spilled gigabytes to disk).
@@ -23,6 +25,7 @@ streams as (
     select
         credits.customer_id,
         credits.payer_id,
+        count(*) as payment_count,
         (max(credits.booking_date) - min(credits.booking_date)) / (count(*) - 1) as mean_gap_days
     from credits
     group by credits.customer_id, credits.payer_id
@@ -56,6 +59,34 @@ matched as (
         end
 ),
 
+possible as (
+    -- Only calendars that could be a fit (intermediate.pay_schedule_fits): two matches at least (a
+    -- calendar that matched one payment explains nothing: most calendars of a stream), and no more missed
+    -- pay days or left-over payments than allowed. A fit explains each match once, so its explained count
+    -- is its match count and these are the fit's own conditions (at 100k customers a third of the rows).
+    select
+        shapes.customer_id,
+        shapes.payer_id,
+        shapes.pattern,
+        shapes.pattern_param
+    from (
+        select
+            matched.customer_id,
+            matched.payer_id,
+            matched.pattern,
+            matched.pattern_param,
+            count(*) as match_count,
+            max(matched.slot) - min(matched.slot) + 1 - count(*) as missed_runs
+        from matched
+        group by matched.customer_id, matched.payer_id, matched.pattern, matched.pattern_param
+    ) as shapes
+    inner join streams on streams.customer_id = shapes.customer_id and streams.payer_id = shapes.payer_id
+    where
+        shapes.match_count >= 2
+        and shapes.missed_runs <= $max_missed_runs
+        and streams.payment_count - shapes.match_count <= shapes.match_count // 3
+),
+
 final as (
     select
         matched.*,
@@ -64,6 +95,12 @@ final as (
             order by matched.booking_date desc
         ) as recency
     from matched
+    semi join possible
+        on
+            possible.customer_id = matched.customer_id
+            and possible.payer_id = matched.payer_id
+            and possible.pattern = matched.pattern
+            and possible.pattern_param = matched.pattern_param
 )
 
 select * from final

@@ -31,27 +31,9 @@ matches as (
     select * from intermediate.pay_calendar_matches
 ),
 
-repeated as (
-    -- a calendar that matched one payment explains nothing (a fit needs two): most calendars of a stream
-    select
-        matches.customer_id,
-        matches.payer_id,
-        matches.pattern,
-        matches.pattern_param
-    from matches
-    group by matches.customer_id, matches.payer_id, matches.pattern, matches.pattern_param
-    having count(*) >= 2
-),
-
 ranked as (
-    select matches.*
-    from matches
-    semi join repeated
-        on
-            repeated.customer_id = matches.customer_id
-            and repeated.payer_id = matches.payer_id
-            and repeated.pattern = matches.pattern
-            and repeated.pattern_param = matches.pattern_param
+    -- only the calendars that could fit the stream: intermediate.pay_calendar_matches keeps no other
+    select matches.* from matches
 ),
 
 schedule as (
