@@ -58,6 +58,7 @@ def fit_conformal(pipe, X: pd.DataFrame, y: np.ndarray, settings: Settings):
         conformity_score=iv.conformity_score,
         method="base",
         cv=KFold(t.cv_folds, shuffle=True, random_state=t.random_state),
+        n_jobs=t.n_jobs,  # the folds' fits on worker processes (each fold's result is the same anywhere)
         random_state=t.random_state,
     )
     return model.fit_conformalize(X, y)

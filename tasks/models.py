@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from joblib import Parallel, delayed
 from scipy import stats
 from sklearn.base import BaseEstimator, RegressorMixin, clone
 from sklearn.compose import ColumnTransformer, TransformedTargetRegressor
@@ -330,6 +331,19 @@ def _one_after_another(fn, jobs: list) -> list:
     return [fn(job) for job in jobs]
 
 
+def in_processes(n_jobs: int):
+    """A mapper running jobs on `n_jobs` worker processes of this machine (joblib's loky backend, which
+    gives each worker 1/n_jobs of the cores for its own threads); one after another when n_jobs is 1.
+    Each split is seeded, so the results do not depend on where it ran (a test compares)."""
+    if n_jobs <= 1:
+        return _one_after_another
+
+    def mapper(fn, jobs: list) -> list:
+        return Parallel(n_jobs=n_jobs)(delayed(fn)(job) for job in jobs)
+
+    return mapper
+
+
 def compare(
     X: pd.DataFrame,
     y: np.ndarray,
@@ -342,8 +356,9 @@ def compare(
     When every candidate is a `prepare` + `model` Pipeline with the same preparation (as made by
     `make_candidates`), the preparation is fitted once per split and each model on its output: the same
     result as fitting each Pipeline, without repeating the one-hot encoding and imputation per model.
-    `mapper(fn, jobs)` runs the splits (default: one after another here; the Dask runner maps them onto
-    its cluster); every split is independent and seeded, so where it runs does not change its result.
+    `mapper(fn, jobs)` runs the splits (default: on train.n_jobs processes of this machine; the Dask runner
+    maps them onto its cluster); every split is independent and seeded, so where it runs does not change
+    its result.
     """
     t, edges = settings.train, settings.bands.edges
     y = np.asarray(y, dtype=float)
@@ -352,7 +367,7 @@ def compare(
     shared = _shared_preparation(candidates)
     n_splits = len(splits)
     jobs = [SplitJob(X, y, train, test, candidates, shared, tuple(edges)) for train, test in splits]
-    done = (mapper or _one_after_another)(score_split, jobs)
+    done = (mapper or in_processes(t.n_jobs))(score_split, jobs)
     scores = {name: np.empty((4, n_splits)) for name in candidates}  # rmse, mae, band acc, within one
     oof = {name: np.full((t.cv_repeats, len(y)), np.nan) for name in candidates}
     for i, ((_, test), result) in enumerate(zip(splits, done, strict=True)):

@@ -117,7 +117,7 @@ def evaluate(
     if with_learning_curve:
         target = a.min_mae_skill + max(sk.mae_skill.mean - sk.mae_skill.lower, 0.0)
         base_mae = comparison.results[sk.mae_baseline].mean("mae")
-        learning = learning_curve_of(pipe, Xs, ys, first_repeat, base_mae, target, len(y))
+        learning = learning_curve_of(pipe, Xs, ys, first_repeat, base_mae, target, len(y), t.n_jobs)
     return Evaluation(comparison, sk, len(y), sample, held, float(np.mean(hit)), by_band, learning)
 
 

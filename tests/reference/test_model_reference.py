@@ -96,7 +96,7 @@ def test_every_candidate_is_fitted_on_identical_splits(shared_preparation):
     rng = np.random.default_rng(3)
     X = pd.DataFrame({"a": rng.normal(size=50), "region": rng.choice(["N", "S"], 50)})
     y = rng.permutation(np.arange(30_000.0, 30_050.0))
-    s = _settings_for(["a"], ("region",))
+    s = _settings_for(["a"], ("region",), n_jobs=1)  # the recorder's log is this process's
     _Recorder.log.clear()
     names = ("first", "second", "third")
     if shared_preparation:
@@ -129,6 +129,23 @@ def test_shared_preparation_gives_the_same_scores_as_whole_pipelines():
     for name, r in fast.results.items():
         np.testing.assert_allclose(r.mae, whole.results[name].mae, rtol=1e-10)
         np.testing.assert_allclose(r.oof, whole.results[name].oof, rtol=1e-10)
+
+
+def test_splits_on_worker_processes_score_as_one_after_another():
+    # train.n_jobs > 1 runs the comparison's splits on worker processes (joblib's loky backend, each worker
+    # with its share of the cores' threads). Every split is seeded, so the figures must be the very same.
+    rng = np.random.default_rng(8)
+    X = pd.DataFrame(
+        {"a": rng.normal(size=300), "b": rng.lognormal(size=300), "region": rng.choice(["N", "S", "E"], 300)}
+    )
+    y = 40_000 + 8_000 * X["a"].to_numpy() + 3_000 * X["b"].to_numpy() + rng.normal(0, 5_000, 300)
+    common = {"forest_trees": 8, "boosting_max_iter": 20}
+    here = compare(X, y, _settings_for(["a", "b"], ("region",), n_jobs=1, **common))
+    there = compare(X, y, _settings_for(["a", "b"], ("region",), n_jobs=2, **common))
+    assert set(here.results) == set(there.results) and len(here.results) == 7  # 5 candidates, 2 baselines
+    for name, r in here.results.items():
+        for metric in ("rmse", "mae", "band_accuracy", "within_one_band", "oof"):
+            assert np.array_equal(getattr(r, metric), getattr(there.results[name], metric), equal_nan=True)
 
 
 def test_cv_figures_are_the_textbook_rmse_mae_and_band_accuracy():
