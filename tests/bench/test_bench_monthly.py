@@ -362,7 +362,7 @@ def _bench_monthly(customers: int, months: int, work: Path) -> dict:
     home = work / "home"
     home.mkdir()
     before = str(Period.parse(last).shift(-1))
-    _, _, code = _run_flow(landing, home, before)
+    _, _, _, code = _run_flow(landing, home, before)
     assert code == 0, (work / f"flow-{before}.log").read_text()[-3000:]
     seconds, peak_mb, tree_mb, code = _run_flow(landing, home, last)
     assert code == 0, (work / f"flow-{last}.log").read_text()[-3000:]
