@@ -52,11 +52,20 @@ def _insert_records(
 ) -> None:
     con.register("incoming_records", records)
     cols = ", ".join(columns)
-    con.execute(
-        f"insert into {target} (load_id, source_file, source_line, {cols}) "
-        f"select ?, ?, source_line, {cols} from incoming_records",
-        [load_id, str(path)],
-    )
+    # Every record carries its source_line, so the rows need not be stored in the file's order. Kept in
+    # order, the stream's blocks end in partly filled row groups that the next checkpoint rewrites: at
+    # 100k customers a month's 3.3M records took 3.3 s to insert and 2.4 s more to checkpoint; in any
+    # order they fill whole row groups, and the checkpoint has nothing to rewrite.
+    [(kept,)] = con.execute("select current_setting('preserve_insertion_order')").fetchall()
+    con.execute("set preserve_insertion_order = false")
+    try:
+        con.execute(
+            f"insert into {target} (load_id, source_file, source_line, {cols}) "
+            f"select ?, ?, source_line, {cols} from incoming_records",
+            [load_id, str(path)],
+        )
+    finally:
+        con.execute("set preserve_insertion_order = true" if kept else "set preserve_insertion_order = false")
     con.unregister(
         "incoming_records"
     )  # (after a failed insert the name stays; the next register replaces it)

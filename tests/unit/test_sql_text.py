@@ -80,8 +80,17 @@ REVIEWED = {
     "_NAMES_A_FIELD, double-quoted; flags: predicates built by pushdown.predicate from suite rules whose column "
     "names pass translatable() (an identifier pattern and present in the query), values bound as $regex_i, "
     "$set_i, $min_i, $max_i; query: validate's _PARSED_QUERY",
-    ("tasks/pushdown.py", ("tallies",)): "generated names m0.., u0.. only",
-    ("tasks/pushdown.py", ("carried", "marks", "broken_any")): "carried as above; generated names u0.. only",
+    (
+        "tasks/pushdown.py",
+        ("tallies", "checks"),
+    ): "generated names m0.., u0.. only; checks: 'rule_checks', or it "
+    "joined with repeated_i tables on k_i columns (i an int index)",
+    (
+        "tasks/pushdown.py",
+        ("carried", "marks", "checks", "broken_any"),
+    ): "carried as above; generated names u0.. only; checks as above",
+    ("tasks/pushdown.py", ("i", "i", "i", "i")): "i: a uniqueness rule's int index (temp table repeated_i)",
+    ("tasks/pushdown.py", ("i",)): "as above",
     ("tasks/train.py", ("table",)): "train.ML_TABLES, the module's own tuple",
     ("tasks/validate.py", ("column",)): "the suite's column name, checked against the contract's columns by "
     "read_suite's caller (a packaged suite)",
