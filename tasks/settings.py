@@ -144,6 +144,9 @@ class TrainSettings(_Section):
     """Above this many labelled customers the comparison runs on a band-stratified sample of this size;
     the champion is still refitted on everyone."""
     n_jobs: int = Field(2, ge=1)
+    """Worker processes for the comparison's splits, the learning curve and the conformal folds (each
+    seeded: the figures do not depend on it), and the forest's threads; 1 runs everything in the run's
+    own process."""
 
     @field_validator("candidates")
     @classmethod
