@@ -27,13 +27,9 @@ frequencies as (
     select * from ref.pay_frequencies
 ),
 
-matches as (
-    select * from intermediate.pay_calendar_matches
-),
-
 ranked as (
     -- only the calendars that could fit the stream: intermediate.pay_calendar_matches keeps no other
-    select matches.* from matches
+    select * from intermediate.pay_calendar_matches
 ),
 
 schedule as (
