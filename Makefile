@@ -5,7 +5,7 @@ BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed-$(shell cat pyproject.toml | sha256sum | cut -c1-16)
 
 .DEFAULT_GOAL := help
-.PHONY: help venv demo test test-all test-crash test-scale bench lint format clean browser
+.PHONY: help venv demo test test-integration test-crash test-scale check bench lint format clean browser
 
 help: ## list the targets
 	@grep -E '^[a-z-]+:.*## ' $(MAKEFILE_LIST) | awk -F':.*## ' '{printf "  make %-10s %s\n", $$1, $$2}'
@@ -28,18 +28,23 @@ browser: ## install Debian's chromium and chromium-driver for the report's brows
 		|| (DEBIAN_FRONTEND=noninteractive apt-get install -y -q chromium chromium-driver > /tmp/ledgerband-apt.log 2>&1 \
 		|| (echo "could not install chromium (see /tmp/ledgerband-apt.log): the browser test will be skipped"; true))
 
-test: venv ## lint, then run the default test suite (unit, sql, reference, integration; no benchmarks)
+test: venv ## the fast loop (~2 min): lint, then unit, SQL and reference tests (tests/unit, sql, reference)
 	@$(MAKE) --no-print-directory lint
-	$(BIN)/python -m pytest
+	$(BIN)/python -m pytest -m "unit or sql or reference"
 
-test-crash: venv ## kill runs at each stage boundary and rerun them (~8 min; CI runs it after make test)
-	$(BIN)/python -m pytest tests/crash -m crash
+test-integration: venv ## whole flows, a real Prefect server, the built wheel (tests/integration, package; ~5 min; CI)
+	$(BIN)/python -m pytest -m "integration or package"
 
-test-scale: venv ## the month on buckets and on a local 2-worker Dask cluster, equal to one build (~3 min; CI runs it)
-	$(BIN)/python -m pytest tests/scale -m scale
+test-crash: venv ## kill runs at each stage boundary and rerun them (tests/crash; ~13 min; CI)
+	$(BIN)/python -m pytest -m crash
+
+test-scale: venv ## the month on buckets and on a local 2-worker Dask cluster, equal to one build (tests/scale; ~3 min; CI)
+	$(BIN)/python -m pytest -m scale
+
+check: test test-integration test-crash test-scale ## everything CI runs (after `make browser`)
 
 bench: venv ## benchmark the monthly flow at 10k and 100k customers beside plain DuckDB (BENCH_SIZES, BENCH_MONTHS)
-	$(BIN)/python -m pytest tests/bench -m bench -s -p no:cacheprovider
+	$(BIN)/python -m pytest -m bench -s -p no:cacheprovider
 
 lint: venv ## ruff (style, imports, bugbear) and sqlfluff (the DuckDB SQL under warehouse/)
 	$(BIN)/ruff check flows tasks tests

@@ -17,8 +17,8 @@ import typer
 from rich.console import Console
 from rich.table import Table
 
-from ledgerband.tasks.errors import LedgerbandError
-from ledgerband.tasks.runtime import configure_process_env
+from ledgerband.tasks.core.errors import LedgerbandError
+from ledgerband.tasks.core.runtime import configure_process_env
 
 
 class DemoFormat(StrEnum):
@@ -105,7 +105,7 @@ def _quiet_expected_failures() -> None:
 def _settings():
     from pydantic import ValidationError
 
-    from ledgerband.tasks.settings import get_settings
+    from ledgerband.tasks.core.settings import get_settings
 
     try:
         return get_settings()
@@ -144,7 +144,7 @@ def _print_result(result) -> None:
 
 def _period(text: str):
     """A YYYY-MM period from the command line, or exit 2 with the reason."""
-    from ledgerband.tasks.period import Period
+    from ledgerband.tasks.core.period import Period
 
     try:
         return Period.parse(text)
@@ -312,8 +312,8 @@ def restate(
 ) -> None:
     """Replace an accepted month's extract by a corrected one in the landing folder, and run the month."""
     s = _settings()
-    from ledgerband.tasks import restate as restatement
-    from ledgerband.tasks.warehouse import open_warehouse
+    from ledgerband.tasks.core.warehouse import open_warehouse
+    from ledgerband.tasks.ops import restate as restatement
 
     p = _period(period)
     landing = landing or s.landing
@@ -342,7 +342,7 @@ def restate(
 
 
 def _published_periods(s) -> set[str]:
-    from ledgerband.tasks.warehouse import connect
+    from ledgerband.tasks.core.warehouse import connect
 
     if not s.warehouse_path.exists():
         return set()
@@ -368,7 +368,7 @@ def export(
 ) -> None:
     """Write one published month's tables (income bands, band summary, band movers) to a folder."""
     s = _settings()
-    from ledgerband.tasks.export import export_period
+    from ledgerband.tasks.publish.export import export_period
 
     _period(period)
     files = _run_guarded(export_period, s.published_path, period, format.value, to)
@@ -382,7 +382,7 @@ def contract() -> None:
     s = _settings()
     import duckdb
 
-    from ledgerband.tasks.contract import markdown
+    from ledgerband.tasks.publish.readers_contract import markdown
 
     if not s.published_path.exists():
         _fail(LedgerbandError(f"no published tables yet at {s.published_path}; run `ledgerband demo` first"))
@@ -438,7 +438,7 @@ def serve() -> None:
 @app.command()
 def status(limit: Annotated[int, typer.Option(help="How many recent runs to show.")] = 10) -> None:
     """Recent runs, their stages and gate outcomes (read from the working warehouse)."""
-    from ledgerband.tasks.warehouse import connect
+    from ledgerband.tasks.core.warehouse import connect
 
     s = _settings()
     if not s.warehouse_path.exists():
@@ -480,7 +480,7 @@ def status(limit: Annotated[int, typer.Option(help="How many recent runs to show
             )
     out.print(f"Recent runs in {s.warehouse_path}:")
     colour = {"published": "green", "withheld": "yellow", "stopped": "red", "failed": "red", "crashed": "red"}
-    from ledgerband.tasks.runlock import lock_is_free
+    from ledgerband.tasks.ops.runlock import lock_is_free
 
     nobody_running = lock_is_free(s.home)
     for run_id, period, started, st, error, stages, gates in rows:

@@ -8,13 +8,13 @@ from prefect import flow, task
 from prefect.cache_policies import NO_CACHE
 
 from ledgerband.flows.monthly import RunResult, monthly_run
-from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.settings import get_settings
+from ledgerband.tasks.core.warehouse import open_warehouse
 from ledgerband.tasks.demo.defects import inject
 from ledgerband.tasks.demo.generator import DemoFiles, generate
 from ledgerband.tasks.demo.truth import label_agreement, truth_check
-from ledgerband.tasks.report import report_task
-from ledgerband.tasks.settings import get_settings
-from ledgerband.tasks.warehouse import open_warehouse
+from ledgerband.tasks.report.run_report import report_task
 
 
 @task(name="generate-demo-extracts", cache_policy=NO_CACHE)

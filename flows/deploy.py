@@ -2,7 +2,7 @@
 process worker) or served from this process (`ledgerband serve`, no work pool needed).
 
 The deployment carries no period: each scheduled run reads the last complete month before its scheduled
-time (ledgerband.tasks.schedule). It allows one run at a time (concurrency limit 1), on top of the state
+time (ledgerband.tasks.ops.schedule). It allows one run at a time (concurrency limit 1), on top of the state
 folder's own run lock. The worker runs the installed package (a module-path entrypoint: no checkout,
 no image) with this state folder and settings file in its environment.
 """
@@ -13,8 +13,8 @@ import os
 from uuid import UUID
 
 from ledgerband.flows.monthly import monthly_run
-from ledgerband.tasks.schedule import cron_schedule
-from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.core.settings import Settings
+from ledgerband.tasks.ops.schedule import cron_schedule
 
 DESCRIPTION = (
     "ledgerband monthly run: ingest, quality, labels, models, accuracy and drift gates, publish. "

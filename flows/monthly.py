@@ -11,30 +11,30 @@ from prefect import flow, get_run_logger
 from prefect.runtime import flow_run
 
 from ledgerband.tasks.alerts import alert_owners_hook
-from ledgerband.tasks.artifacts import run_artifacts
-from ledgerband.tasks.cluster import run_cluster
-from ledgerband.tasks.context import RunContext
-from ledgerband.tasks.errors import GateStopped
-from ledgerband.tasks.faults import checkpoint
-from ledgerband.tasks.features import FeatureBuild, build_features_task
+from ledgerband.tasks.core.cluster import run_cluster
+from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.errors import GateStopped
+from ledgerband.tasks.core.settings import get_settings
+from ledgerband.tasks.core.task_policy import minutes_setting
+from ledgerband.tasks.core.warehouse import FEATURES_STAGE
 from ledgerband.tasks.gates import Decision
 from ledgerband.tasks.gates.accuracy import accuracy_gate_task
 from ledgerband.tasks.gates.drift import drift_gate_task
 from ledgerband.tasks.gates.labels import label_gate_task
-from ledgerband.tasks.gates.quality import quality_gate_task
-from ledgerband.tasks.ingest import find_extracts_task, ingest_customers_task, ingest_extract_task
-from ledgerband.tasks.loads import LoadResult
-from ledgerband.tasks.publish import parquet_task, publish_task, refresh_reader_copy_task
-from ledgerband.tasks.report import report_task
-from ledgerband.tasks.retry import minutes_setting
-from ledgerband.tasks.runlock import run_lock
-from ledgerband.tasks.runlog import FAILED, PUBLISHED, RunLog
-from ledgerband.tasks.schedule import period_for_scheduled
-from ledgerband.tasks.settings import get_settings
-from ledgerband.tasks.train import TrainSummary, train_task
-from ledgerband.tasks.validate import validate_features_task, validate_load_task
-from ledgerband.tasks.validation_docs import keep_task as keep_validation_results_task
-from ledgerband.tasks.warehouse import FEATURES_STAGE
+from ledgerband.tasks.gates.quarantine_share import quality_gate_task
+from ledgerband.tasks.ingest.extracts import find_extracts_task, ingest_customers_task, ingest_extract_task
+from ledgerband.tasks.ingest.loads import LoadResult
+from ledgerband.tasks.layers.build import FeatureBuild, build_features_task
+from ledgerband.tasks.modeling.train import TrainSummary, train_task
+from ledgerband.tasks.ops.faults import checkpoint
+from ledgerband.tasks.ops.runlock import run_lock
+from ledgerband.tasks.ops.runlog import FAILED, PUBLISHED, RunLog
+from ledgerband.tasks.ops.schedule import period_for_scheduled
+from ledgerband.tasks.publish.snapshot import parquet_task, publish_task, refresh_reader_copy_task
+from ledgerband.tasks.quality.validate import validate_features_task, validate_load_task
+from ledgerband.tasks.report.run_page import run_artifacts
+from ledgerband.tasks.report.run_report import report_task
+from ledgerband.tasks.report.validation_page import keep_task as keep_validation_results_task
 
 
 @dataclass(frozen=True)

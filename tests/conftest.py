@@ -20,9 +20,9 @@ for _name in list(os.environ):
 import duckdb  # noqa: E402
 import pytest  # noqa: E402
 
-from ledgerband.tasks.runtime import configure_process_env  # noqa: E402
-from ledgerband.tasks.settings import Settings, get_settings  # noqa: E402
-from ledgerband.tasks.warehouse import apply_schema  # noqa: E402
+from ledgerband.tasks.core.runtime import configure_process_env  # noqa: E402
+from ledgerband.tasks.core.settings import Settings, get_settings  # noqa: E402
+from ledgerband.tasks.core.warehouse import apply_schema  # noqa: E402
 
 configure_process_env()  # the test session is an entry point, like the CLI
 
@@ -130,3 +130,17 @@ def smtp_sink():
         yield f"127.0.0.1:{port}", received
     finally:
         controller.stop()
+
+
+# Each test folder is a marker of its own, so a marker and its folder can never disagree:
+# `make test` (the fast loop) runs -m "unit or sql or reference"; CI runs every folder but bench.
+SUITES = ("unit", "sql", "reference", "integration", "package", "crash", "scale", "bench")
+
+
+@pytest.hookimpl(tryfirst=True)
+def pytest_collection_modifyitems(config, items):
+    root = Path(__file__).parent
+    for item in items:
+        parts = Path(str(item.path)).relative_to(root).parts
+        if len(parts) > 1 and parts[0] in SUITES:
+            item.add_marker(getattr(pytest.mark, parts[0]))

@@ -13,8 +13,8 @@ from pathlib import Path
 
 import duckdb
 
-from ledgerband.tasks.publish import READER_TABLES
-from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.core.settings import Settings
+from ledgerband.tasks.publish.snapshot import READER_TABLES
 
 # Columns that name the run (or its model) that wrote a row.
 VOLATILE = ("run_id", "snapshot_id", "model_version")

@@ -81,7 +81,7 @@ create table if not exists quarantine.ledger_lines (
 
 -- The txn_ids the repeated-booking rule (txn_id_not_loaded_before) compares a new extract with: every
 -- record of an accepted ledger load that was not quarantined. Narrow, so the check reads two columns
--- instead of raw.ledger_lines joined to ops.loads and the quarantine. Kept by tasks/txn_keys.py, which
+-- instead of raw.ledger_lines joined to ops.loads and the quarantine. Kept by tasks/quality/accepted_txn_ids.py, which
 -- records each held load with its quarantined count and brings the table in line with ops.loads
 -- before every check (new, restated or re-quarantined loads), so it is never trusted blindly.
 create table if not exists ops.accepted_txn_ids (
@@ -103,7 +103,7 @@ create or replace table ref.pay_frequencies (
 );
 
 -- The institution's business calendar around the feature window, rewritten before the layers are built
--- (ledgerband.tasks.business_calendar): weekends and public holidays are not business days; pay due on
+-- (ledgerband.tasks.layers.business_calendar): weekends and public holidays are not business days; pay due on
 -- one lands on the business day before or after it.
 create table if not exists ref.business_calendar (
     day date primary key,
@@ -152,13 +152,13 @@ create table if not exists ml.predictions (
     annual_salary double                   -- observed label, null when the salary is not paid here
 );
 -- The amount to publish (observed salary when paid here, else the estimate, rounded to cents) and its
--- band, computed once by ledgerband.tasks.bands; the publish SQL only reads them.
+-- band, computed once by ledgerband.tasks.modeling.bands; the publish SQL only reads them.
 alter table ml.predictions add column if not exists income_value double;
 alter table ml.predictions add column if not exists band_index integer;
 -- A pension read from its credits (payroll.pensions_observed), published as observed income.
 alter table ml.predictions add column if not exists observed_pension double;
 
--- Intervals and held-out figures (ledgerband.tasks.intervals): the interval around every estimate,
+-- Intervals and held-out figures (ledgerband.tasks.modeling.intervals): the interval around every estimate,
 -- rounded outwards to intervals.round_to; for labelled customers in the comparison, the estimate and
 -- interval of a conformal model that never saw them (coverage is measured on these).
 alter table ml.predictions add column if not exists estimate_low double;
@@ -339,7 +339,7 @@ create table if not exists ops.alerts (
     sent_at timestamp not null     -- UTC
 );
 
--- One row per accepted load a restatement replaced (ledgerband.tasks.restate).
+-- One row per accepted load a restatement replaced (ledgerband.tasks.ops.restate).
 create table if not exists ops.restatements (
     restatement_id varchar not null,
     period varchar not null,

@@ -23,7 +23,7 @@ import uuid
 from datetime import UTC, datetime
 from pathlib import Path
 
-from ledgerband.tasks.errors import GateStopped
+from ledgerband.tasks.core.errors import GateStopped
 
 STAGE_AUDIENCE = {
     "ingest": "data",
@@ -51,7 +51,7 @@ def write_alert(log_path: Path, alert: dict) -> dict:
 
 def _run_facts(settings, run_id: str) -> dict:
     """What ops.runs and published.decisions say about the run (empty if the warehouse cannot tell)."""
-    from ledgerband.tasks.warehouse import connect
+    from ledgerband.tasks.core.warehouse import connect
 
     if not settings.warehouse_path.exists():
         return {}
@@ -210,7 +210,7 @@ def deliver(alert: dict, settings) -> list[dict]:
 def _record(settings, outcomes: list[dict]) -> None:
     import pandas as pd
 
-    from ledgerband.tasks.warehouse import apply_schema, connect
+    from ledgerband.tasks.core.warehouse import apply_schema, connect
 
     try:
         con = connect(settings.warehouse_path)
@@ -229,8 +229,8 @@ def alert_owners_hook(flow, flow_run, state) -> None:
     """Prefect on_failure / on_crashed hook: log the alert locally, then send it to its audiences."""
     from prefect.logging import get_logger
 
-    from ledgerband.tasks.runlock import RunLocked
-    from ledgerband.tasks.settings import get_settings
+    from ledgerband.tasks.core.settings import get_settings
+    from ledgerband.tasks.ops.runlock import RunLocked
 
     message = state.message or ""
     if RunLocked.MARK in message:

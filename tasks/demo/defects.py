@@ -20,9 +20,9 @@ from pathlib import Path
 
 import numpy as np
 
+from ledgerband.tasks.core.errors import LedgerbandError
 from ledgerband.tasks.demo.generator import DemoFiles
-from ledgerband.tasks.errors import LedgerbandError
-from ledgerband.tasks.landing.manifest import sender_figures
+from ledgerband.tasks.ingest.manifest import sender_figures
 
 MODES = ("quarantine", "stop")
 

@@ -29,9 +29,9 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from ledgerband.tasks.errors import LedgerbandError
-from ledgerband.tasks.landing.contract import CUSTOMER_COLUMNS, sha256_file
-from ledgerband.tasks.period import Period
+from ledgerband.tasks.core.errors import LedgerbandError
+from ledgerband.tasks.core.period import Period
+from ledgerband.tasks.ingest.extract_contract import CUSTOMER_COLUMNS, sha256_file
 
 REGIONS = (
     "Corrandale Central",

@@ -7,7 +7,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ledgerband.tasks.bands import assign_band_index
+from ledgerband.tasks.modeling.bands import assign_band_index
 
 
 def truth_check(con, answers_path: Path, run_id: str, edges: tuple[float, ...]) -> dict:

@@ -16,9 +16,9 @@ from datetime import datetime
 
 import duckdb
 
-from ledgerband.tasks.context import RunContext
-from ledgerband.tasks.errors import GateStopped
-from ledgerband.tasks.warehouse import transaction
+from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.errors import GateStopped
+from ledgerband.tasks.core.warehouse import transaction
 
 QUALITY = "quality"
 ACCURACY = "accuracy"

@@ -12,11 +12,11 @@ from __future__ import annotations
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
-from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.settings import Settings
+from ledgerband.tasks.core.warehouse import open_warehouse
 from ledgerband.tasks.gates import ACCURACY, Decision, enforce, pct
-from ledgerband.tasks.settings import Settings
-from ledgerband.tasks.train import TrainSummary
-from ledgerband.tasks.warehouse import open_warehouse
+from ledgerband.tasks.modeling.train import TrainSummary
 
 
 def accuracy_gate(train: TrainSummary, settings: Settings) -> Decision:

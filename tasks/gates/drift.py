@@ -21,9 +21,9 @@ import pandas as pd
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
-from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.warehouse import open_warehouse
 from ledgerband.tasks.gates import Decision, enforce
-from ledgerband.tasks.warehouse import open_warehouse
 
 DRIFT = "drift"
 LABEL = "label:annual_salary"
@@ -179,7 +179,7 @@ def earlier_snapshot(con, period: str) -> tuple[str, str, str] | None:
 
 def out_of_time_check(con, ctx: RunContext, earlier_run: str, earlier_period: str) -> dict | None:
     """Last month's champion on this month's labelled customers: MAE now vs its cross-validated MAE."""
-    from ledgerband.tasks.train import load_champion, model_frame
+    from ledgerband.tasks.modeling.train import load_champion, model_frame
 
     path = ctx.settings.models_dir / earlier_period / earlier_run / "model.skops"
     cv = con.execute(
@@ -220,7 +220,7 @@ def check_drift(con, ctx: RunContext) -> Decision:
     ).df()
     if stored.empty:
         return drift_decision(pd.DataFrame(), None, None, ctx.settings)
-    from ledgerband.tasks.train import model_frame
+    from ledgerband.tasks.modeling.train import model_frame
 
     frame = model_frame(con)
     bands = con.execute(

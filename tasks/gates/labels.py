@@ -15,10 +15,10 @@ import duckdb
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
-from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.settings import LabelSettings
+from ledgerband.tasks.core.warehouse import open_warehouse
 from ledgerband.tasks.gates import Decision, enforce, pct
-from ledgerband.tasks.settings import LabelSettings
-from ledgerband.tasks.warehouse import open_warehouse
 
 LABELS = "labels"
 

@@ -42,12 +42,9 @@ from decimal import Decimal
 from pathlib import Path
 
 import duckdb
-import pytest
 
-from ledgerband.tasks.period import Period
+from ledgerband.tasks.core.period import Period
 from tests.monthly_cli import isolated_env, run_command
-
-pytestmark = pytest.mark.bench
 
 ROOT = Path(__file__).parents[2]
 BENCH = ROOT / "bench"
@@ -128,7 +125,7 @@ TILE = 100_000
 def _tiled(customers: int, months: int):
     """`customers // TILE` renamed copies of the TILE-customer bank: one extract per month, its manifest
     re-issued (row count and totals times the copies, new SHA-256), and the customer file."""
-    from ledgerband.tasks.landing.contract import sha256_file
+    from ledgerband.tasks.ingest.extract_contract import sha256_file
 
     base, base_landing = _extracts(TILE, months)
     copies = customers // TILE

@@ -13,9 +13,6 @@ import time
 
 import numpy as np
 import pandas as pd
-import pytest
-
-pytestmark = pytest.mark.bench
 
 
 def _frame(n: int, seed: int = 1) -> tuple[pd.DataFrame, np.ndarray]:
@@ -39,10 +36,10 @@ def _frame(n: int, seed: int = 1) -> tuple[pd.DataFrame, np.ndarray]:
 
 
 def test_training_with_intervals_at_scale():
-    from ledgerband.tasks.intervals import fit_conformal, predict_intervals
-    from ledgerband.tasks.models import make_candidates
-    from ledgerband.tasks.settings import Settings
-    from ledgerband.tasks.train import evaluate
+    from ledgerband.tasks.core.settings import Settings
+    from ledgerband.tasks.modeling.candidates import make_candidates
+    from ledgerband.tasks.modeling.intervals import fit_conformal, predict_intervals
+    from ledgerband.tasks.modeling.train import evaluate
 
     settings = Settings()
     sizes = [int(x) for x in os.environ.get("BENCH_LABELLED", "10000,100000").split(",")]

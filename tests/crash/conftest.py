@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from ledgerband.tasks.faults import FAULT_ENV
+from ledgerband.tasks.ops.faults import FAULT_ENV
 from tests.monthly_cli import run_month
 
 PERIOD = "2026-10"

@@ -18,10 +18,15 @@ from pathlib import Path
 
 import duckdb
 
-from ledgerband.tasks.context import RunContext
-from ledgerband.tasks.errors import PublishWriteError
-from ledgerband.tasks.publish import READER_TABLES, export_reader_copy, publish_snapshot, write_parquet
-from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.errors import PublishWriteError
+from ledgerband.tasks.core.settings import Settings
+from ledgerband.tasks.publish.snapshot import (
+    READER_TABLES,
+    export_reader_copy,
+    publish_snapshot,
+    write_parquet,
+)
 
 
 def _files(folder: Path) -> dict[str, str]:

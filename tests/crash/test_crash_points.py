@@ -1,7 +1,7 @@
 """A run killed at any stage boundary loses nothing, and the rerun gives the clean run's answer.
 
 Each test runs `ledgerband run` in a subprocess that ends itself abruptly (`os._exit`, as SIGKILL would:
-no cleanup runs) at one named point (tasks/faults.py), then runs the month again and compares with a run
+no cleanup runs) at one named point (tasks/ops/faults.py), then runs the month again and compares with a run
 that was never interrupted. Marked `crash` (about 11 minutes with the disk cases): `make test-crash`; CI runs it after the
 default suite. The runs use the CLI's own temporary Prefect server, so the test also sees what a killed
 run leaves behind.
@@ -15,14 +15,12 @@ from pathlib import Path
 import duckdb
 import pytest
 
-from ledgerband.tasks.faults import FAULT_EXIT_CODE, POINTS
-from ledgerband.tasks.runtime import orphaned_servers
-from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.core.runtime import orphaned_servers
+from ledgerband.tasks.core.settings import Settings
+from ledgerband.tasks.ops.faults import FAULT_EXIT_CODE, POINTS
 from tests.crash.conftest import PERIOD
 from tests.crash.conftest import run_cli as _run
 from tests.monthly_cli import reader_tables
-
-pytestmark = pytest.mark.crash
 
 # Points after the publish transaction commits: the killed run left a whole snapshot of the month.
 PUBLISHED_BEFORE_THE_CRASH = {"mid_publish", "after_swap"}

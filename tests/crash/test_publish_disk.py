@@ -17,8 +17,6 @@ from pathlib import Path
 
 import pytest
 
-pytestmark = pytest.mark.crash
-
 PROBE = Path(__file__).with_name("disk_probe.py")
 
 

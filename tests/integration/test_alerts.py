@@ -6,12 +6,9 @@ from __future__ import annotations
 import socket
 
 import duckdb
-import pytest
 
 from ledgerband.tasks.alerts import deliver, render, write_alert
-from ledgerband.tasks.settings import Settings
-
-pytestmark = pytest.mark.integration
+from ledgerband.tasks.core.settings import Settings
 
 
 def _alert(**changes) -> dict:

@@ -4,13 +4,13 @@ from __future__ import annotations
 
 import pytest
 
-from ledgerband.tasks.context import RunContext
+from ledgerband.tasks.core.context import RunContext
 from ledgerband.tasks.demo.defects import inject
 from ledgerband.tasks.demo.generator import generate
-from ledgerband.tasks.gates.quality import quality_gate
-from ledgerband.tasks.ingest import load_customers, load_extract
-from ledgerband.tasks.landing.manifest import read_manifest
-from ledgerband.tasks.validate import validate_load
+from ledgerband.tasks.gates.quarantine_share import quality_gate
+from ledgerband.tasks.ingest.extracts import load_customers, load_extract
+from ledgerband.tasks.ingest.manifest import read_manifest
+from ledgerband.tasks.quality.validate import validate_load
 
 
 def _damaged(tmp_path, settings, con, mode):
@@ -48,7 +48,7 @@ def test_stop_mode_damages_more_than_the_gate_allows(tmp_path, settings, con):
 
 
 def test_unknown_mode_is_refused(tmp_path):
-    from ledgerband.tasks.errors import LedgerbandError
+    from ledgerband.tasks.core.errors import LedgerbandError
 
     files = generate(tmp_path / "landing", tmp_path / "answers.parquet", customers=60, months=1, seed=3)
     with pytest.raises(LedgerbandError, match="--inject-defects must be one of quarantine, stop"):

@@ -6,9 +6,7 @@ from __future__ import annotations
 import duckdb
 import pytest
 
-from ledgerband.tasks.errors import GateStopped
-
-pytestmark = pytest.mark.integration
+from ledgerband.tasks.core.errors import GateStopped
 
 
 @pytest.fixture(scope="module")
@@ -17,8 +15,8 @@ def two_months(tmp_path_factory, prefect_api):
     with pytest.MonkeyPatch.context() as mp:
         mp.setenv("LEDGERBAND_HOME", str(home))
         from ledgerband.flows.monthly import monthly_run
+        from ledgerband.tasks.core.settings import get_settings
         from ledgerband.tasks.demo.generator import generate
-        from ledgerband.tasks.settings import get_settings
 
         get_settings.cache_clear()
         s = get_settings()
@@ -62,7 +60,7 @@ def test_the_second_month_is_compared_with_the_first(two_months):
 
 def test_a_large_move_withholds_the_month(two_months, monkeypatch):
     from ledgerband.flows.monthly import monthly_run
-    from ledgerband.tasks.settings import get_settings
+    from ledgerband.tasks.core.settings import get_settings
 
     home, files, _, october = two_months
     monkeypatch.setenv("LEDGERBAND_DRIFT__PSI_STOP", "0.000001")

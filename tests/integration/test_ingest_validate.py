@@ -6,16 +6,16 @@ from pathlib import Path
 
 import pytest
 
-from ledgerband.tasks import loads
-from ledgerband.tasks.context import RunContext
-from ledgerband.tasks.errors import ExtractError, GateStopped
-from ledgerband.tasks.gates.quality import quality_gate
-from ledgerband.tasks.ingest import load_customers, load_extract
-from ledgerband.tasks.landing.manifest import find_manifests
-from ledgerband.tasks.period import Period
-from ledgerband.tasks.settings import Settings
-from ledgerband.tasks.validate import validate_load
-from ledgerband.tasks.warehouse import run_sql_file
+from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.errors import ExtractError, GateStopped
+from ledgerband.tasks.core.period import Period
+from ledgerband.tasks.core.settings import Settings
+from ledgerband.tasks.core.warehouse import run_sql_file
+from ledgerband.tasks.gates.quarantine_share import quality_gate
+from ledgerband.tasks.ingest import loads
+from ledgerband.tasks.ingest.extracts import load_customers, load_extract
+from ledgerband.tasks.ingest.manifest import find_manifests
+from ledgerband.tasks.quality.validate import validate_load
 
 FIXTURES = Path(__file__).parents[1] / "fixtures"
 
@@ -180,7 +180,7 @@ def test_customer_file_is_loaded_once(con, tmp_path):
 
 
 def test_feature_suite_passes_real_features_and_names_broken_rules(con, ledger_con_with_features):
-    from ledgerband.tasks.validate import validate_features
+    from ledgerband.tasks.quality.validate import validate_features
 
     assert validate_features(ledger_con_with_features).passed
     ledger_con_with_features.execute("update features.customer set debit_count = -1 where customer_id = 'C2'")
@@ -197,8 +197,8 @@ def test_feature_suite_passes_real_features_and_names_broken_rules(con, ledger_c
 
 @pytest.fixture
 def ledger_con_with_features(con, settings, tmp_path):
-    from ledgerband.tasks.features import build_features
-    from ledgerband.tasks.ingest import load_customers
+    from ledgerband.tasks.ingest.extracts import load_customers
+    from ledgerband.tasks.layers.build import build_features
 
     landing = _copy(tmp_path, "ledger_good")
     _, v = _ingest(con, landing, settings)
@@ -350,8 +350,8 @@ def test_a_ledger_currency_outside_iso_4217_is_a_configuration_error():
 def test_gx_results_are_kept_per_rule_and_rendered_offline(con, settings, tmp_path, engine):
     # The kept results are in GX's form (expectation_config, success, result), merged over chunks when
     # GX evaluates; their counts must agree with what was quarantined, rule by rule.
-    from ledgerband.tasks import validation_docs
-    from ledgerband.tasks.validate import read_suite
+    from ledgerband.tasks.quality.validate import read_suite
+    from ledgerband.tasks.report import validation_page
 
     # Several chunks for 6 records (GX); one pass (DuckDB).
     small = Settings(home=tmp_path / "state", quality={"chunk_rows": 2, "engine": engine})
@@ -367,7 +367,7 @@ def test_gx_results_are_kept_per_rule_and_rendered_offline(con, settings, tmp_pa
         assert result["success"] == (rule not in v.rule_counts)
     # Line numbers only: a record's values stay in the warehouse.
     assert by_rule["amount_format"]["result"]["partial_unexpected_index_list"] == [{"source_line": 4}]
-    page = validation_docs.keep(_ctx("run-1", small), [v])
+    page = validation_page.keep(_ctx("run-1", small), [v])
     doc = json.loads(page.with_name("run-1.validation.json").read_text())
     assert doc["extracts"][0]["results"] == json.loads(json.dumps(v.results))
     html = page.read_text()
@@ -376,7 +376,7 @@ def test_gx_results_are_kept_per_rule_and_rendered_offline(con, settings, tmp_pa
 
 
 def _source_manifest(folder: Path, file: str, source: str | None, lines: list[str]) -> None:
-    from ledgerband.tasks.landing.manifest import sender_figures
+    from ledgerband.tasks.ingest.manifest import sender_figures
 
     path = folder / file
     path.write_text("\n".join(lines) + "\n")
@@ -425,7 +425,7 @@ def test_a_month_from_several_source_systems_is_complete_only_when_each_has_arri
 def test_hostile_files_are_refused_before_they_are_read(con, settings, tmp_path):
     import os
 
-    from ledgerband.tasks.landing.records import read_records
+    from ledgerband.tasks.ingest.records import read_records
 
     # A header of 100,000 columns, and a "header" with no line break at all: refused from line 1 alone.
     wide = tmp_path / "wide.csv"

@@ -19,11 +19,11 @@ import duckdb
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
-from ledgerband.tasks.context import RunContext
-from ledgerband.tasks.errors import ExtractError, GateStopped
-from ledgerband.tasks.ingest import load_extract
-from ledgerband.tasks.landing.manifest import read_manifest
-from ledgerband.tasks.warehouse import apply_schema
+from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.errors import ExtractError, GateStopped
+from ledgerband.tasks.core.warehouse import apply_schema
+from ledgerband.tasks.ingest.extracts import load_extract
+from ledgerband.tasks.ingest.manifest import read_manifest
 
 GOOD = Path(__file__).parents[1] / "fixtures" / "ledger_good" / "2026-10"
 ORIGINAL = (GOOD / "ledger-2026-10.csv").read_bytes()

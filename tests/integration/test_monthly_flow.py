@@ -9,9 +9,8 @@ from pathlib import Path
 import duckdb
 import pytest
 
-from ledgerband.tasks.errors import GateStopped
+from ledgerband.tasks.core.errors import GateStopped
 
-pytestmark = pytest.mark.integration
 CUSTOMERS = 400
 
 
@@ -34,8 +33,8 @@ def home(tmp_path_factory, prefect_api):
 
 @pytest.fixture(scope="module")
 def demo(home):
+    from ledgerband.tasks.core.settings import get_settings
     from ledgerband.tasks.demo.generator import generate
-    from ledgerband.tasks.settings import get_settings
 
     get_settings.cache_clear()
     s = get_settings()
@@ -208,7 +207,7 @@ def test_report_carries_the_cautions_and_the_model_comparison(first_run):
 def test_saved_model_reloads_and_reproduces_the_estimates(home, first_run):
     import numpy as np
 
-    from ledgerband.tasks.train import load_champion, model_frame
+    from ledgerband.tasks.modeling.train import load_champion, model_frame
 
     folder = home / "models" / "2026-10" / first_run.run_id
     assert sorted(p.name for p in folder.iterdir()) == ["model.skops", "model_card.json"]
@@ -231,8 +230,8 @@ def test_a_saved_model_changed_after_it_was_written_is_refused(home, first_run, 
     with hashlib, the standard library's FIPS 180-4 implementation) and a changed file is never unpacked."""
     import hashlib
 
-    from ledgerband.tasks.errors import ModelFileRefused
-    from ledgerband.tasks.train import load_model
+    from ledgerband.tasks.core.errors import ModelFileRefused
+    from ledgerband.tasks.modeling.train import load_model
 
     saved = home / "models" / "2026-10" / first_run.run_id / "model.skops"
     [(recorded,)] = _q(
@@ -272,9 +271,9 @@ def test_a_crashed_runs_committed_snapshot_is_replaced_by_its_reruns_identical_o
     clean run. A finished run's snapshot, or a crashed run's that differs, stays (any rerun's does)."""
     import uuid
 
-    from ledgerband.tasks.context import RunContext
-    from ledgerband.tasks.publish import publish_snapshot
-    from ledgerband.tasks.settings import get_settings
+    from ledgerband.tasks.core.context import RunContext
+    from ledgerband.tasks.core.settings import get_settings
+    from ledgerband.tasks.publish.snapshot import publish_snapshot
 
     for suffix in ("", ".wal"):  # a copy: the module's warehouse stays as the other tests left it
         if (home / f"warehouse.duckdb{suffix}").exists():
@@ -328,7 +327,7 @@ def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(
     home, first_run, demo, monkeypatch, http_sink
 ):
     from ledgerband.flows.monthly import monthly_run
-    from ledgerband.tasks.settings import get_settings
+    from ledgerband.tasks.core.settings import get_settings
 
     current = _q(home, "select run_id from published.snapshots where is_current")
     monkeypatch.setenv("LEDGERBAND_ACCURACY__MIN_BAND_SKILL", "0.99")
@@ -365,7 +364,7 @@ def test_withheld_run_keeps_the_previous_snapshot_and_alerts_owners(
 
 def test_bad_extract_stops_the_run_at_the_quality_gate(home, first_run, monkeypatch, tmp_path):
     from ledgerband.flows.monthly import monthly_run
-    from ledgerband.tasks.settings import get_settings
+    from ledgerband.tasks.core.settings import get_settings
 
     landing = tmp_path / "landing"
     shutil.copytree(Path(__file__).parents[1] / "fixtures" / "ledger_bad", landing)
@@ -405,7 +404,7 @@ def test_cli_names_the_missing_period_folder_without_a_traceback(prefect_api, tm
     from typer.testing import CliRunner
 
     from ledgerband.flows.cli import app
-    from ledgerband.tasks.settings import get_settings
+    from ledgerband.tasks.core.settings import get_settings
 
     monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path / "state"))
     get_settings.cache_clear()
@@ -424,8 +423,8 @@ def test_estimates_for_customers_without_payroll_are_not_biased(home, first_run,
     Guards against features whose meaning differs between the two groups (income credits did: they
     once biased every estimate by about a third of the mean income).
     """
+    from ledgerband.tasks.core.settings import get_settings
     from ledgerband.tasks.demo.truth import truth_check
-    from ledgerband.tasks.settings import get_settings
 
     con = duckdb.connect(str(home / "warehouse.duckdb"), read_only=True)
     t = truth_check(con, demo.answers, first_run.run_id, get_settings().bands.edges)
@@ -440,8 +439,8 @@ def test_a_month_whose_payroll_codes_vanish_is_stopped_by_the_label_gate(prefect
     import hashlib
 
     from ledgerband.flows.monthly import monthly_run
+    from ledgerband.tasks.core.settings import get_settings
     from ledgerband.tasks.demo.generator import generate
-    from ledgerband.tasks.settings import get_settings
 
     monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path / "state"))
     get_settings.cache_clear()
@@ -500,7 +499,7 @@ def test_a_published_month_whose_readers_copy_fails_is_still_recorded_as_publish
 
 
 def test_readme_lists_the_published_contract_from_the_comments(first_run):
-    from ledgerband.tasks.contract import markdown
+    from ledgerband.tasks.publish.readers_contract import markdown
 
     readme = (Path(__file__).resolve().parents[2] / "README.md").read_text()
     documented = readme.split("<!-- contract:start -->\n", 1)[1].split("\n<!-- contract:end -->", 1)[0]
@@ -654,11 +653,11 @@ def test_no_customer_level_value_reaches_alerts_artifacts_or_reports(home, first
 def test_a_forest_champion_above_its_tree_row_bound_says_so_in_the_report(home, first_run, tmp_path):
     """`train.forest_max_tree_rows` binds only at large banks; here it is set below this bank's draw.
     The fitted forest reports the bound, the summary carries it and the report's line states it."""
-    from ledgerband.tasks.context import RunContext
-    from ledgerband.tasks.report import gather, render
-    from ledgerband.tasks.settings import Settings
-    from ledgerband.tasks.train import train_and_predict
-    from ledgerband.tasks.warehouse import open_warehouse
+    from ledgerband.tasks.core.context import RunContext
+    from ledgerband.tasks.core.settings import Settings
+    from ledgerband.tasks.core.warehouse import open_warehouse
+    from ledgerband.tasks.modeling.train import train_and_predict
+    from ledgerband.tasks.report.run_report import gather, render
 
     shutil.copy(home / "warehouse.duckdb", tmp_path / "warehouse.duckdb")
     bounded = {"candidates": ["random_forest"], "forest_trees": 10, "forest_max_tree_rows": 100}

@@ -17,7 +17,6 @@ from zoneinfo import ZoneInfo
 import httpx
 import pytest
 
-pytestmark = pytest.mark.integration
 BIN = Path(sys.executable).parent
 DUBLIN = ZoneInfo("Europe/Dublin")
 
@@ -103,7 +102,7 @@ def test_the_schedule_on_the_server_is_06_00_dublin_on_the_3rd(server, deployed)
     from prefect.client.schemas.filters import DeploymentFilter, DeploymentFilterId
     from prefect.client.schemas.sorting import FlowRunSort
 
-    from ledgerband.tasks.schedule import period_for_scheduled
+    from ledgerband.tasks.ops.schedule import period_for_scheduled
 
     assert deployed.concurrency_limit == 1 or getattr(deployed, "global_concurrency_limit", None)
     runs = []

@@ -10,12 +10,10 @@ from pathlib import Path
 
 import pytest
 
-pytestmark = pytest.mark.integration
-
 HOLD = """
 import sys, time
 from pathlib import Path
-from ledgerband.tasks.runlock import run_lock
+from ledgerband.tasks.ops.runlock import run_lock
 with run_lock(Path(sys.argv[1]), "2026-10"):
     print("held", flush=True)
     time.sleep(120)
@@ -53,14 +51,14 @@ def test_a_second_run_is_refused_while_the_first_holds_the_folder(tmp_path, pref
         holder.send_signal(signal.SIGKILL)  # as a crash would end it
         holder.wait(timeout=30)
     # The operating system released the dead run's lock: the next run takes it with nothing to clear.
-    from ledgerband.tasks.runlock import run_lock
+    from ledgerband.tasks.ops.runlock import run_lock
 
     with run_lock(home, "2026-10") as me:
         assert me["pid"] == os.getpid()
 
 
 def test_the_lock_is_exclusive_within_one_machine(tmp_path):
-    from ledgerband.tasks.runlock import RunLocked, run_lock
+    from ledgerband.tasks.ops.runlock import RunLocked, run_lock
 
     with run_lock(tmp_path, "2026-09"):
         with pytest.raises(RunLocked, match="period 2026-09") as refused:
@@ -78,10 +76,10 @@ def test_a_run_left_running_by_a_dead_process_is_marked_crashed(tmp_path, monkey
     from typer.testing import CliRunner
 
     from ledgerband.flows.cli import app
-    from ledgerband.tasks.context import RunContext
-    from ledgerband.tasks.runlock import run_lock
-    from ledgerband.tasks.runlog import RunLog
-    from ledgerband.tasks.settings import Settings, get_settings
+    from ledgerband.tasks.core.context import RunContext
+    from ledgerband.tasks.core.settings import Settings, get_settings
+    from ledgerband.tasks.ops.runlock import run_lock
+    from ledgerband.tasks.ops.runlog import RunLog
 
     monkeypatch.setenv("LEDGERBAND_HOME", str(tmp_path))
     get_settings.cache_clear()

@@ -18,7 +18,6 @@ from pathlib import Path
 
 import pytest
 
-pytestmark = pytest.mark.integration
 REPO = Path(__file__).parents[2]
 SOURCES = ("pyproject.toml", "README.md", "flows", "tasks", "warehouse", "expectations")
 

@@ -8,10 +8,16 @@ import pandas as pd
 import pytest
 from sklearn.linear_model import LinearRegression
 
+from ledgerband.tasks.core.settings import Settings
 from ledgerband.tasks.gates.accuracy import accuracy_gate
-from ledgerband.tasks.intervals import band_confidence, covered, fit_conformal, predict_intervals, widen_to
-from ledgerband.tasks.settings import Settings
-from ledgerband.tasks.train import TrainSummary, evaluate, summarise
+from ledgerband.tasks.modeling.intervals import (
+    band_confidence,
+    covered,
+    fit_conformal,
+    predict_intervals,
+    widen_to,
+)
+from ledgerband.tasks.modeling.train import TrainSummary, evaluate, summarise
 
 
 def _exchangeable(rng, n: int) -> tuple[pd.DataFrame, np.ndarray]:

@@ -10,8 +10,8 @@ from sklearn.metrics import mean_absolute_error, root_mean_squared_error
 from sklearn.model_selection import RepeatedKFold
 from sklearn.pipeline import Pipeline
 
-from ledgerband.tasks.models import compare, lower_bound, make_candidates, preparation
-from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.core.settings import Settings
+from ledgerband.tasks.modeling.candidates import compare, lower_bound, make_candidates, preparation
 
 LONGLEY_X = ["GNPDEFL", "GNP", "UNEMP", "ARMED", "POP", "YEAR"]
 
@@ -206,9 +206,9 @@ def test_every_candidate_saves_and_reloads_with_the_trusted_types(tmp_path, log_
     # reloaded model must predict what it predicted before, to the last bits (skops docs: sio.dump / load).
     import skops.io as sio
 
-    from ledgerband.tasks.landing.contract import sha256_file
-    from ledgerband.tasks.models import final_model
-    from ledgerband.tasks.train import load_model
+    from ledgerband.tasks.ingest.extract_contract import sha256_file
+    from ledgerband.tasks.modeling.candidates import final_model
+    from ledgerband.tasks.modeling.train import load_model
 
     rng = np.random.default_rng(9)
     s = Settings(train={"log_target": log_target})
@@ -233,7 +233,7 @@ def test_the_forest_estimates_the_same_on_every_call_and_as_scikit_learn_in_one_
     from sklearn.datasets import make_regression
     from sklearn.ensemble import RandomForestRegressor
 
-    from ledgerband.tasks.models import SteadyForest
+    from ledgerband.tasks.modeling.candidates import SteadyForest
 
     X, y = make_regression(3000, 12, noise=10, random_state=0)
     args = {"n_estimators": 60, "max_samples": 0.5, "min_samples_leaf": 5, "random_state": 1}
@@ -253,7 +253,7 @@ def test_the_forest_grows_each_tree_on_at_most_max_tree_rows_and_is_otherwise_sc
     from sklearn.datasets import make_regression
     from sklearn.ensemble import RandomForestRegressor
 
-    from ledgerband.tasks.models import SteadyForest
+    from ledgerband.tasks.modeling.candidates import SteadyForest
 
     X, y = make_regression(2000, 8, noise=10, random_state=0)
     args = {"n_estimators": 20, "min_samples_leaf": 5, "random_state": 3, "n_jobs": 1}

@@ -1,6 +1,6 @@
 """The same month, three ways: one warehouse build, buckets one after another, buckets on Dask.
 
-The per-customer SQL files run per bucket of customers (ledgerband.tasks.buckets); with
+The per-customer SQL files run per bucket of customers (ledgerband.tasks.layers.buckets); with
 `scale.runner = "dask"` the buckets and the models' CV splits run on a local Dask cluster of two worker
 processes on 127.0.0.1, started by Prefect's Dask task runner. Every table the layers build and every
 table readers get must be the same as the single-machine, single-bucket run's.
@@ -16,11 +16,9 @@ from pathlib import Path
 import duckdb
 import pytest
 
-from ledgerband.tasks.buckets import per_customer_models
-from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.core.settings import Settings
+from ledgerband.tasks.layers.buckets import per_customer_models
 from tests.monthly_cli import reader_tables, run_month
-
-pytestmark = pytest.mark.scale
 
 PERIOD = "2026-10"
 CUSTOMERS = 600

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from datetime import date, datetime, timedelta
 
-from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
+from ledgerband.tasks.ingest.extract_contract import LEDGER_COLUMNS
 
 
 class Ledger:
@@ -67,7 +67,7 @@ class Ledger:
 
     def load(self, customers: list[tuple[str, str, str]] | None = None, status: str = "accepted") -> None:
         """Write the lines as one load (plus a customer file) and build staging from them."""
-        from ledgerband.tasks.warehouse import run_sql_file
+        from ledgerband.tasks.core.warehouse import run_sql_file
 
         con = self.con
         now = datetime(2026, 11, 2, 6, 0)
@@ -108,10 +108,10 @@ WINDOW = {"window_start": date(2026, 8, 1), "window_end": date(2026, 10, 31), "l
 
 def build_salary(con, window: dict = WINDOW, **payroll) -> None:
     """Build the salary layers for `window` with default payroll settings (overridden by `payroll`)."""
-    from ledgerband.tasks.business_calendar import write_business_calendar, write_pay_frequencies
-    from ledgerband.tasks.period import Period
-    from ledgerband.tasks.settings import Settings
-    from ledgerband.tasks.warehouse import run_sql_file
+    from ledgerband.tasks.core.period import Period
+    from ledgerband.tasks.core.settings import Settings
+    from ledgerband.tasks.core.warehouse import run_sql_file
+    from ledgerband.tasks.layers.business_calendar import write_business_calendar, write_pay_frequencies
 
     settings = Settings(payroll=payroll)
     write_pay_frequencies(con, settings)

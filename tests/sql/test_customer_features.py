@@ -5,7 +5,7 @@ from datetime import date
 import pytest
 from dateutil.relativedelta import relativedelta
 
-from ledgerband.tasks.warehouse import run_sql_file
+from ledgerband.tasks.core.warehouse import run_sql_file
 from tests.sql.sqlkit import WINDOW
 
 

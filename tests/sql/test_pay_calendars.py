@@ -248,7 +248,7 @@ def test_card_refunds_and_book_transfers_are_not_pay(con, ledger):
 def test_annualisation_follows_the_julian_year_by_default():
     # A Julian year is exactly 365.25 days (IAU, the unit of the Julian calendar's mean year): the mean
     # number of weeks in a year is 365.25 / 7 = 52.1786, of fortnights 26.0893, of four-week periods 13.0446.
-    from ledgerband.tasks.settings import PayrollSettings
+    from ledgerband.tasks.core.settings import PayrollSettings
 
     ppy = PayrollSettings().periods_per_year()
     assert ppy == {

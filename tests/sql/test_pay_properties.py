@@ -1,7 +1,7 @@
 """Property tests of the salary label against pay dates made by an independent calendar.
 
 Pay dates here come from numpy's business-day rolling (`numpy.busday_offset`) with the default holidays,
-not from the SQL or ledgerband.tasks.business_calendar. The property: across random start dates in
+not from the SQL or ledgerband.tasks.layers.business_calendar. The property: across random start dates in
 2024-2030, pay calendars, amounts, a pay rise and one missed run, a customer who gets a label gets the
 right one — the pay frequency, and the annual figure within 0.5% of amount x periods per year — and the
 common calendars are labelled in nearly every window.
@@ -17,9 +17,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from ledgerband.tasks.period import Period
-from ledgerband.tasks.settings import PayrollSettings
-from ledgerband.tasks.warehouse import apply_schema
+from ledgerband.tasks.core.period import Period
+from ledgerband.tasks.core.settings import PayrollSettings
+from ledgerband.tasks.core.warehouse import apply_schema
 from tests.sql.sqlkit import Ledger, build_salary
 
 FREQUENCY = {

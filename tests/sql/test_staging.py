@@ -2,7 +2,7 @@
 
 from datetime import date, datetime
 
-from ledgerband.tasks.warehouse import run_sql_file
+from ledgerband.tasks.core.warehouse import run_sql_file
 from tests.sql.sqlkit import WINDOW
 
 
@@ -60,7 +60,7 @@ def test_payroll_is_recognised_by_purpose_or_sub_family(con, ledger):
 
 
 def test_a_txn_id_in_a_later_accepted_load_keeps_the_earlier_booking(con, ledger):
-    from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
+    from ledgerband.tasks.ingest.extract_contract import LEDGER_COLUMNS
 
     ledger.add("C1", date(2026, 10, 1), 10.0, txn_id="DUP")
     ledger.load()  # load L1, loaded 2026-11-02 06:00

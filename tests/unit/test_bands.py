@@ -1,7 +1,7 @@
 import numpy as np
 import pytest
 
-from ledgerband.tasks.bands import assign_band_index, band_agreement, band_table
+from ledgerband.tasks.modeling.bands import assign_band_index, band_agreement, band_table
 
 EDGES = (25_000, 40_000, 60_000)
 
@@ -32,7 +32,7 @@ def test_band_table_labels_and_bounds():
 def test_observed_salary_wins_then_an_observed_pension_then_the_estimate():
     import pandas as pd
 
-    from ledgerband.tasks.bands import income_to_publish
+    from ledgerband.tasks.modeling.bands import income_to_publish
 
     salary = pd.Series([50_000.0, None, None])
     pension = pd.Series([12_000.0, 12_000.0, None])
@@ -55,8 +55,8 @@ def test_published_band_sql_agrees_with_python_at_every_edge(con):
 
     import pandas as pd
 
-    from ledgerband.tasks.bands import income_to_publish, write_band_table
-    from ledgerband.tasks.publish import insert_from_file
+    from ledgerband.tasks.modeling.bands import income_to_publish, write_band_table
+    from ledgerband.tasks.publish.snapshot import insert_from_file
 
     write_band_table(con, EDGES, "EUR")
     # 24_999.996 rounds to 25,000.00: published amount and band must agree after rounding.
@@ -100,10 +100,10 @@ def test_a_backfilled_month_never_moves_readers_back_in_time(con):
     """Publishing 2026-09 after 2026-10 adds a historical snapshot; 2026-10 stays current (then 2026-11 moves on)."""
     import pandas as pd
 
-    from ledgerband.tasks.bands import income_to_publish
-    from ledgerband.tasks.context import RunContext
-    from ledgerband.tasks.publish import publish_snapshot
-    from ledgerband.tasks.settings import Settings
+    from ledgerband.tasks.core.context import RunContext
+    from ledgerband.tasks.core.settings import Settings
+    from ledgerband.tasks.modeling.bands import income_to_publish
+    from ledgerband.tasks.publish.snapshot import publish_snapshot
 
     con.execute("create schema if not exists features")
     con.execute("create table features.customer as select 'C1' as customer_id, 'North Reach' as home_region")

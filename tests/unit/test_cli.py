@@ -9,7 +9,7 @@ import pytest
 from typer.testing import CliRunner
 
 from ledgerband.flows.cli import app
-from ledgerband.tasks.warehouse import apply_schema
+from ledgerband.tasks.core.warehouse import apply_schema
 
 runner = CliRunner()
 

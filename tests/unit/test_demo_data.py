@@ -8,7 +8,7 @@ import pandas as pd
 import pytest
 
 from ledgerband.tasks.demo.generator import generate
-from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
+from ledgerband.tasks.ingest.extract_contract import LEDGER_COLUMNS
 
 
 @pytest.fixture(scope="module")

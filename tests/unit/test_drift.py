@@ -6,6 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from ledgerband.tasks.core.settings import Settings
 from ledgerband.tasks.gates.drift import (
     BANDS,
     compare_profiles,
@@ -15,7 +16,6 @@ from ledgerband.tasks.gates.drift import (
     quantile_edges,
     shares,
 )
-from ledgerband.tasks.settings import Settings
 
 
 def test_psi_worked_example():

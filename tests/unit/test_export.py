@@ -7,8 +7,8 @@ import csv
 import duckdb
 import pytest
 
-from ledgerband.tasks.errors import LedgerbandError
-from ledgerband.tasks.export import export_period
+from ledgerband.tasks.core.errors import LedgerbandError
+from ledgerband.tasks.publish.export import export_period
 
 
 def _published(path, customer_ids):

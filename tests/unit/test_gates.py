@@ -2,14 +2,14 @@ import math
 
 import pytest
 
-from ledgerband.tasks.context import RunContext
-from ledgerband.tasks.errors import GateStopped
+from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.errors import GateStopped
+from ledgerband.tasks.core.settings import Settings
 from ledgerband.tasks.gates import Decision, enforce
 from ledgerband.tasks.gates.accuracy import accuracy_gate
-from ledgerband.tasks.gates.quality import quality_gate
-from ledgerband.tasks.settings import Settings
-from ledgerband.tasks.train import TrainSummary
-from ledgerband.tasks.validate import ValidationSummary
+from ledgerband.tasks.gates.quarantine_share import quality_gate
+from ledgerband.tasks.modeling.train import TrainSummary
+from ledgerband.tasks.quality.validate import ValidationSummary
 
 
 def _validation(quarantined: int, rows: int = 1000) -> ValidationSummary:

@@ -14,9 +14,9 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from ledgerband.tasks import pushdown
-from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
-from ledgerband.tasks.validate import _run, extract_contract_decision
+from ledgerband.tasks.ingest.extract_contract import LEDGER_COLUMNS
+from ledgerband.tasks.quality import pushdown
+from ledgerband.tasks.quality.validate import _run, extract_contract_decision
 
 CONTRACT = list(LEDGER_COLUMNS)
 HEADERS = {
@@ -80,9 +80,9 @@ def test_checking_a_header_does_not_import_gx():
     code = (
         "import sys\n"
         "from pathlib import Path\n"
-        "from ledgerband.tasks.ingest import load_extract\n"
-        "from ledgerband.tasks.landing.contract import LEDGER_COLUMNS\n"
-        "from ledgerband.tasks.validate import extract_contract_decision\n"
+        "from ledgerband.tasks.ingest.extracts import load_extract\n"
+        "from ledgerband.tasks.ingest.extract_contract import LEDGER_COLUMNS\n"
+        "from ledgerband.tasks.quality.validate import extract_contract_decision\n"
         "assert extract_contract_decision(list(LEDGER_COLUMNS), source=Path('x.csv')).passed\n"
         "print(any(m.split('.')[0] == 'great_expectations' for m in sys.modules))\n"
     )

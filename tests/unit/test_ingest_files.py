@@ -6,11 +6,11 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from ledgerband.tasks.errors import ExtractError
-from ledgerband.tasks.landing.contract import LEDGER_COLUMNS
-from ledgerband.tasks.landing.manifest import find_manifests, read_manifest
-from ledgerband.tasks.landing.records import read_records
-from ledgerband.tasks.period import Period
+from ledgerband.tasks.core.errors import ExtractError
+from ledgerband.tasks.core.period import Period
+from ledgerband.tasks.ingest.extract_contract import LEDGER_COLUMNS
+from ledgerband.tasks.ingest.manifest import find_manifests, read_manifest
+from ledgerband.tasks.ingest.records import read_records
 
 GOOD = Path(__file__).parents[1] / "fixtures" / "ledger_good"
 
@@ -107,7 +107,7 @@ def test_parquet_records_are_numbered_and_typed_columns_become_text(tmp_path):
 
 
 def test_a_cleaned_landing_folder_is_fine_once_its_month_is_accepted(tmp_path):
-    from ledgerband.tasks.landing.manifest import manifests_to_load
+    from ledgerband.tasks.ingest.manifest import manifests_to_load
 
     landing = tmp_path / "landing"
     shutil.copytree(GOOD / "2026-10", landing / "2026-10")
@@ -116,7 +116,7 @@ def test_a_cleaned_landing_folder_is_fine_once_its_month_is_accepted(tmp_path):
 
 
 def test_a_month_neither_landed_nor_accepted_is_an_error_naming_the_folder(tmp_path):
-    from ledgerband.tasks.landing.manifest import manifests_to_load
+    from ledgerband.tasks.ingest.manifest import manifests_to_load
 
     with pytest.raises(ExtractError, match=str(tmp_path / "2026-09")):
         manifests_to_load(tmp_path, [Period(2026, 9)], accepted_periods=set())
@@ -155,7 +155,7 @@ def test_manifest_with_a_bad_period_names_the_manifest(tmp_path):
 
 def test_contract_columns_and_the_suite_header_rule_agree():
     # Two declarations of one contract (code that loads, the rule that checks): they must not drift.
-    from ledgerband.tasks.validate import read_suite
+    from ledgerband.tasks.quality.validate import read_suite
 
     [rule] = read_suite("ledger_lines").table
     assert rule["kwargs"]["column_set"] == list(LEDGER_COLUMNS)
@@ -177,7 +177,7 @@ def test_a_file_read_in_blocks_keeps_every_line_number(tmp_path, block_bytes):
     import csv
     import random
 
-    from ledgerband.tasks.landing.records import stream_records
+    from ledgerband.tasks.ingest.records import stream_records
 
     rng = random.Random(11)
     lines = ["a,b,c"]
@@ -212,7 +212,7 @@ def test_a_short_record_that_is_not_utf8_is_quarantined_by_the_python_reader(tmp
     before calling the row handler, and fails on a Latin-1 byte (0xe9, e-acute; not UTF-8 by RFC 3629).
     The Arrow stream ends with ArrowRowHandlerError; Python's csv module reads the file: the record is
     set aside for its field count, its text kept with the byte escaped, and the other records load."""
-    from ledgerband.tasks.landing.records import ArrowRowHandlerError, stream_records
+    from ledgerband.tasks.ingest.records import ArrowRowHandlerError, stream_records
 
     path = tmp_path / "short.csv"
     path.write_bytes(b"a,b,c\n1,2,3\n4,\xe9,6,7\n8,9,10\n")
@@ -263,7 +263,7 @@ def test_the_python_reader_finds_what_arrow_finds(tmp_path, seed):
 
 
 def test_a_file_unreadable_part_way_ends_the_stream_with_its_error(tmp_path):
-    from ledgerband.tasks.landing.records import stream_records
+    from ledgerband.tasks.ingest.records import stream_records
 
     path = tmp_path / "broken.csv"
     # Quoted line breaks across block boundaries: Arrow's chunker loses sync part-way through the file.

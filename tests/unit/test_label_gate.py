@@ -2,8 +2,8 @@
 
 import math
 
+from ledgerband.tasks.core.settings import LabelSettings
 from ledgerband.tasks.gates.labels import LabelStats, label_gate
-from ledgerband.tasks.settings import LabelSettings
 
 
 def _stats(**changes) -> LabelStats:

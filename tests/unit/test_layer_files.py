@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import re
 
-from ledgerband.tasks.buckets import bucket_inputs, per_customer_models
-from ledgerband.tasks.warehouse import layer_models
+from ledgerband.tasks.core.warehouse import layer_models
+from ledgerband.tasks.layers.buckets import bucket_inputs, per_customer_models
 
 # Schemas of the warehouse (warehouse/schema.sql and the layer folders).
 _RELATION = re.compile(

@@ -2,8 +2,8 @@ from datetime import date
 
 import pytest
 
-from ledgerband.tasks.errors import LedgerbandError
-from ledgerband.tasks.period import Period
+from ledgerband.tasks.core.errors import LedgerbandError
+from ledgerband.tasks.core.period import Period
 
 
 def test_period_bounds_follow_the_calendar_including_leap_february():

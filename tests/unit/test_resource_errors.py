@@ -9,11 +9,11 @@ from __future__ import annotations
 import duckdb
 import pytest
 
-from ledgerband.tasks.context import RunContext
-from ledgerband.tasks.errors import LedgerbandError
-from ledgerband.tasks.runlog import RunLog
-from ledgerband.tasks.settings import ScaleSettings, Settings
-from ledgerband.tasks.warehouse import FEATURES_STAGE, duckdb_limits, resource_error
+from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.errors import LedgerbandError
+from ledgerband.tasks.core.settings import ScaleSettings, Settings
+from ledgerband.tasks.core.warehouse import FEATURES_STAGE, duckdb_limits, resource_error
+from ledgerband.tasks.ops.runlog import RunLog
 
 
 def _duckdb_error(tmp_path, config: dict, sql: str) -> BaseException:

@@ -1,8 +1,8 @@
 import pytest
 from prefect.states import Failed
 
-from ledgerband.tasks.errors import ExtractError, GateStopped
-from ledgerband.tasks.retry import retry_on_io
+from ledgerband.tasks.core.errors import ExtractError, GateStopped
+from ledgerband.tasks.core.task_policy import retry_on_io
 
 
 @pytest.mark.parametrize(

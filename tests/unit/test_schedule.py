@@ -7,8 +7,8 @@ from zoneinfo import ZoneInfo
 
 import pytest
 
-from ledgerband.tasks.schedule import period_for_scheduled
-from ledgerband.tasks.settings import Settings
+from ledgerband.tasks.core.settings import Settings
+from ledgerband.tasks.ops.schedule import period_for_scheduled
 
 DUBLIN = ZoneInfo("Europe/Dublin")
 
@@ -73,7 +73,7 @@ def test_an_unknown_time_zone_is_a_configuration_error():
 def test_prefect_yaml_says_what_the_settings_say():
     import yaml
 
-    from ledgerband.tasks.settings import Settings as S
+    from ledgerband.tasks.core.settings import Settings as S
 
     root = __import__("pathlib").Path(__file__).resolve().parents[2]
     spec = yaml.safe_load((root / "prefect.yaml").read_text())

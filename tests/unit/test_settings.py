@@ -3,7 +3,7 @@ from pathlib import Path
 import pytest
 from pydantic import ValidationError
 
-from ledgerband.tasks.settings import Settings, TrainSettings
+from ledgerband.tasks.core.settings import Settings, TrainSettings
 
 EXAMPLE = Path(__file__).parents[2] / "ledgerband.toml"  # the commented example in the repository
 

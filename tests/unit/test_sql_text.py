@@ -16,94 +16,131 @@ SQL_CALLS = {"execute", "executemany", "sql", "query"}
 
 # (file, formatted expressions) -> why they cannot carry outside input.
 REVIEWED = {
-    ("tasks/buckets.py", ("relation", "columns")): "relation from the layer files' Reads headers (our own "
-    "package files); columns is a path made a literal by sql_literal",
-    ("tasks/buckets.py", ("BUCKET_OF.format(n=int(n))", "relation", "sql_literal(target)")): "BUCKET_OF is a "
-    "constant with an int; relation and the path as above",
-    ("tasks/buckets.py", ("relation", "sql_literal(f'{target}.parquet')")): "as above",
-    ("tasks/buckets.py", ("schema",)): "the schema part of a relation from our Reads headers",
     (
-        "tasks/buckets.py",
+        "tasks/layers/buckets.py",
+        ("relation", "columns"),
+    ): "relation from the layer files' Reads headers (our own "
+    "package files); columns is a path made a literal by sql_literal",
+    (
+        "tasks/layers/buckets.py",
+        ("BUCKET_OF.format(n=int(n))", "relation", "sql_literal(target)"),
+    ): "BUCKET_OF is a constant with an int; relation and the path as above",
+    ("tasks/layers/buckets.py", ("relation", "sql_literal(f'{target}.parquet')")): "as above",
+    ("tasks/layers/buckets.py", ("schema",)): "the schema part of a relation from our Reads headers",
+    (
+        "tasks/layers/buckets.py",
         ("relation", "files"),
     ): "relation as above; files a path made a literal by sql_literal",
-    ("tasks/buckets.py", ("model.layer",)): "the folder name of one of our package's SQL files",
-    ("tasks/buckets.py", ("model.relation", "target")): "our SQL file's relation; target made a literal by "
-    "sql_literal",
+    ("tasks/layers/buckets.py", ("model.layer",)): "the folder name of one of our package's SQL files",
     (
-        "tasks/buckets.py",
+        "tasks/layers/buckets.py",
+        ("model.relation", "target"),
+    ): "our SQL file's relation; target made a literal by sql_literal",
+    (
+        "tasks/layers/buckets.py",
         ("model.relation", "files"),
     ): "our SQL file's relation; files made literals by sql_literal",
-    ("tasks/staging.py", ("TABLE", "append_query(model)")): "TABLE is a constant; the query is our package's "
+    (
+        "tasks/layers/transactions.py",
+        ("TABLE", "append_query(model)"),
+    ): "TABLE is a constant; the query is our package's "
     "SQL file with one constant CTE put in place of another (values bound as $new_loads)",
     (
-        "tasks/contract.py",
+        "tasks/publish/readers_contract.py",
         ("catalog", "table", "sql_literal(comment)"),
     ): "catalog is our attach name; table is checked "
     "against contract.TABLES/HISTORY just above; the comment is our text, quoted by warehouse.sql_literal",
     (
-        "tasks/contract.py",
+        "tasks/publish/readers_contract.py",
         ("catalog", "table", "column", "sql_literal(columns[column])"),
     ): "as above; column read "
     "from duckdb_columns() of our own table and checked against the contract's column list",
     (
-        "tasks/export.py",
+        "tasks/publish/export.py",
         ("table",),
     ): "table is one of publish.READER_TABLES (validated by the export command)",
-    ("tasks/export.py", ("columns", "table")): "columns from `describe` of that table, table as above",
     (
-        "tasks/export.py",
+        "tasks/publish/export.py",
+        ("columns", "table"),
+    ): "columns from `describe` of that table, table as above",
+    (
+        "tasks/publish/export.py",
         ("sql_literal(path)", "options"),
     ): "path made a literal by warehouse.sql_literal (single quotes doubled); options from a fixed dict keyed by the format enum",
     (
-        "tasks/ingest.py",
+        "tasks/ingest/extracts.py",
         ("target", "cols", "cols"),
     ): "target is 'raw.ledger_lines' or 'raw.customers' (literals at "
     "the call sites); cols from contract.LEDGER_COLUMNS/CUSTOMER_COLUMNS",
-    ("tasks/loads.py", ("table",)): "a literal tuple of three table names",
-    ("tasks/txn_keys.py", ("DEFINITION",)): "a constant of that module (the key table's definition); "
-    "the load ids go in as a bound parameter",
-    ("tasks/publish.py", ("table", "model.query")): "table a literal at the call site; query read from a "
-    "packaged SQL file",
+    ("tasks/ingest/loads.py", ("table",)): "a literal tuple of three table names",
     (
-        "tasks/publish.py",
+        "tasks/quality/accepted_txn_ids.py",
+        ("DEFINITION",),
+    ): "a constant of that module (the key table's definition); the load ids go in as a bound parameter",
+    (
+        "tasks/publish/snapshot.py",
+        ("table", "model.query"),
+    ): "table a literal at the call site; query read from a packaged SQL file",
+    (
+        "tasks/publish/snapshot.py",
         ("sql_literal(tmp)",),
     ): "a path under the state folder, made a literal by sql_literal",
-    ("tasks/publish.py", ("READER_TABLES[history]",)): "a query from the module's own dict",
-    ("tasks/publish.py", ("table",)): "a literal at the call site",
-    ("tasks/publish.py", ("name", "query")): "READER_TABLES' own keys and queries",
-    ("tasks/publish.py", ("sql_literal(staging / name)",)): "a path under the state folder, quotes doubled",
-    ("tasks/publish.py", ("columns", "table") * 4): "table from publish.HISTORY_TABLES, the module's own "
+    ("tasks/publish/snapshot.py", ("READER_TABLES[history]",)): "a query from the module's own dict",
+    ("tasks/publish/snapshot.py", ("table",)): "a literal at the call site",
+    ("tasks/publish/snapshot.py", ("name", "query")): "READER_TABLES' own keys and queries",
+    (
+        "tasks/publish/snapshot.py",
+        ("sql_literal(staging / name)",),
+    ): "a path under the state folder, quotes doubled",
+    (
+        "tasks/publish/snapshot.py",
+        ("columns", "table") * 4,
+    ): "table from publish.HISTORY_TABLES, the module's own "
     "tuple; columns read from information_schema for that table, each double-quoted",
-    ("tasks/publish.py", ("measure",)): "one of two literal column names chosen just above",
-    ("tasks/publish.py", ("measure", "sql_literal(f'{part}/*.parquet')")): "as above; path quotes doubled",
-    ("tasks/pushdown.py", ("carried", "flags", "query")): "carried: helper column names from validate's own "
+    ("tasks/publish/snapshot.py", ("measure",)): "one of two literal column names chosen just above",
+    (
+        "tasks/publish/snapshot.py",
+        ("measure", "sql_literal(f'{part}/*.parquet')"),
+    ): "as above; path quotes doubled",
+    (
+        "tasks/quality/pushdown.py",
+        ("carried", "flags", "query"),
+    ): "carried: helper column names from validate's own "
     "_NAMES_A_FIELD, double-quoted; flags: predicates built by pushdown.predicate from suite rules whose column "
     "names pass translatable() (an identifier pattern and present in the query), values bound as $regex_i, "
     "$set_i, $min_i, $max_i; query: validate's _PARSED_QUERY",
     (
-        "tasks/pushdown.py",
+        "tasks/quality/pushdown.py",
         ("tallies", "checks"),
     ): "generated names m0.., u0.. only; checks: 'rule_checks', or it "
     "joined with repeated_i tables on k_i columns (i an int index)",
     (
-        "tasks/pushdown.py",
+        "tasks/quality/pushdown.py",
         ("carried", "marks", "checks", "broken_any"),
     ): "carried as above; generated names u0.. only; checks as above",
-    ("tasks/pushdown.py", ("i", "i", "i", "i")): "i: a uniqueness rule's int index (temp table repeated_i)",
-    ("tasks/pushdown.py", ("i",)): "as above",
-    ("tasks/train.py", ("table",)): "train.ML_TABLES, the module's own tuple",
-    ("tasks/validate.py", ("column",)): "the suite's column name, checked against the contract's columns by "
+    (
+        "tasks/quality/pushdown.py",
+        ("i", "i", "i", "i"),
+    ): "i: a uniqueness rule's int index (temp table repeated_i)",
+    ("tasks/quality/pushdown.py", ("i",)): "as above",
+    ("tasks/modeling/train.py", ("table",)): "train.ML_TABLES, the module's own tuple",
+    (
+        "tasks/quality/validate.py",
+        ("column",),
+    ): "the suite's column name, checked against the contract's columns by "
     "read_suite's caller (a packaged suite)",
     (
-        "tasks/validate.py",
+        "tasks/quality/validate.py",
         (
             "columns=', '.join((f'cur.{c}' for c in LEDGER_COLUMNS))",
             "control_field=_first_field(\"regexp_matches(cur.{c}, '[\\\\x00-\\\\x1f\\\\x7f]')\")",
             "long_field=_first_field('length(cur.{c}) > $max_field_length')",
         ),
     ): "column names from contract.LEDGER_COLUMNS and SQL text of our own; the length limit is bound",
-    ("tasks/warehouse.py", ("self.relation", "self.query")): "relation from the packaged SQL file's path "
-    "(layer/name); query is that file's text",
+    (
+        "tasks/core/warehouse.py",
+        ("self.relation", "self.query"),
+    ): "relation from the packaged SQL file's path (layer/name); query is that file's text",
 }
 
 

@@ -3,7 +3,7 @@
 -- Reads: published.income_bands_history, features.customer.
 -- Parameters: $run_id, $min_cell_customers.
 -- customer_count is exact here; `suppressed` marks cells under $min_cell_customers, which readers see
--- as null (ledgerband.tasks.publish.READER_TABLES).
+-- as null (ledgerband.tasks.publish.snapshot.READER_TABLES).
 
 with
 

@@ -4,7 +4,7 @@
 -- Parameters: $run_id, $period, $model_version, $published_at, $currency.
 -- Observed salary wins over the model, then an observed pension: a customer paid here is banded on what
 -- they are paid. The amount (observed: to cents; estimated: to intervals.round_to) and its band were set
--- together by ledgerband.tasks.bands when the run trained, so the published amount and its band always
+-- together by ledgerband.tasks.modeling.bands when the run trained, so the published amount and its band always
 -- agree; this file only looks the band up. A model estimate carries its conformal interval (rounded
 -- outwards) and band confidence (share of the interval inside its band); observed amounts carry none.
 

@@ -1,0 +1,1 @@
+"""Modeling: candidates, repeated cross-validation, intervals, diagnostics (groups, shift, learning curve), bands."""

@@ -1,0 +1,1 @@
+"""Publishing: the snapshot switched in one transaction, the readers' copy and its contract, exports."""
