@@ -81,8 +81,8 @@ create table if not exists quarantine.ledger_lines (
 
 -- The txn_ids the repeated-booking rule (txn_id_not_loaded_before) compares a new extract with: every
 -- record of an accepted ledger load that was not quarantined. Narrow, so the check reads two columns
--- instead of raw.ledger_lines joined to ops.loads and the quarantine. Kept by tasks/quality/accepted_txn_ids.py, which
--- records each held load with its quarantined count and brings the table in line with ops.loads
+-- instead of raw.ledger_lines joined to ops.loads and the quarantine. Kept by
+-- tasks/quality/accepted_txn_ids.py, which records each held load with its quarantined count and brings the table in line with ops.loads
 -- before every check (new, restated or re-quarantined loads), so it is never trusted blindly.
 create table if not exists ops.accepted_txn_ids (
     txn_id varchar not null,
@@ -151,9 +151,10 @@ create table if not exists ml.predictions (
     oof_estimate double,                   -- out-of-fold estimate for labelled customers (band metrics)
     annual_salary double                   -- observed label, null when the salary is not paid here
 );
--- The amount to publish (observed salary when paid here, else the estimate, rounded to cents) and its
--- band, computed once by ledgerband.tasks.modeling.bands; the publish SQL only reads them.
+-- What readers get, decided once by ledgerband.tasks.modeling.amounts.published_figures: the amount to
+-- publish and its band; the publish SQL only reads them.
 alter table ml.predictions add column if not exists income_value double;
+alter table ml.predictions add column if not exists band_source varchar;
 alter table ml.predictions add column if not exists band_index integer;
 -- A pension read from its credits (payroll.pensions_observed), published as observed income.
 alter table ml.predictions add column if not exists observed_pension double;

@@ -24,6 +24,7 @@ from prefect.cache_policies import NO_CACHE
 from ledgerband.tasks.core.context import RunContext
 from ledgerband.tasks.core.warehouse import open_warehouse
 from ledgerband.tasks.gates import Decision, enforce
+from ledgerband.tasks.modeling.amounts import never_negative
 
 DRIFT = "drift"
 LABEL = "label:annual_salary"
@@ -195,7 +196,7 @@ def out_of_time_check(con, ctx: RunContext, earlier_run: str, earlier_period: st
     labelled = frame[frame["annual_salary"].notna()]
     if labelled.empty:
         return None
-    pred = np.clip(model.predict(labelled[card["features"]]), 0, None)
+    pred = never_negative(model.predict(labelled[card["features"]]))
     mae = float(np.mean(np.abs(pred - labelled["annual_salary"].to_numpy(dtype=float))))
     return {
         "model_version": card.get("model_version"),
@@ -206,9 +207,36 @@ def out_of_time_check(con, ctx: RunContext, earlier_run: str, earlier_period: st
     }
 
 
+def store_profile(con, ctx: RunContext, frame: pd.DataFrame, band_index: np.ndarray) -> None:
+    """This run's bins and shares (features, label, bands) in ml.drift_profiles: what a later month's
+    drift check compares itself with."""
+    settings = ctx.settings
+    rows = profile(
+        frame,
+        list(settings.train.numeric_features),
+        band_index,
+        len(settings.bands.edges) + 1,
+        settings.drift.bins,
+    )
+    con.execute("delete from ml.drift_profiles where run_id = ?", [ctx.run_id])
+    con.register("profile_rows", rows.assign(run_id=ctx.run_id))
+    con.execute("insert into ml.drift_profiles by name select * from profile_rows")
+    con.unregister("profile_rows")
+
+
 def check_drift(con, ctx: RunContext) -> Decision:
-    """Compare this run with the latest earlier published month; store the PSI table in ml.drift."""
+    """Store this run's profile; compare it with the latest earlier published month (the PSI table in
+    ml.drift) and last month's model on this month's labels."""
+    from ledgerband.tasks.modeling.train import model_frame
+
     con.execute("delete from ml.drift where run_id = ?", [ctx.run_id])
+    frame = model_frame(con)
+    bands = np.asarray(
+        con.execute(
+            "select band_index from ml.predictions where run_id = ? order by customer_id", [ctx.run_id]
+        ).fetchnumpy()["band_index"]
+    )
+    store_profile(con, ctx, frame, bands)
     earlier = earlier_snapshot(con, str(ctx.period))
     if earlier is None:
         return drift_decision(pd.DataFrame(), None, None, ctx.settings)
@@ -220,13 +248,7 @@ def check_drift(con, ctx: RunContext) -> Decision:
     ).df()
     if stored.empty:
         return drift_decision(pd.DataFrame(), None, None, ctx.settings)
-    from ledgerband.tasks.modeling.train import model_frame
-
-    frame = model_frame(con)
-    bands = con.execute(
-        "select band_index from ml.predictions where run_id = ? order by customer_id", [ctx.run_id]
-    ).fetchnumpy()["band_index"]
-    drift = compare_profiles(stored, frame, np.asarray(bands))
+    drift = compare_profiles(stored, frame, bands)
     con.register("drift_rows", drift.assign(run_id=ctx.run_id, compared_with_run=earlier_run))
     con.execute("insert into ml.drift by name select * from drift_rows")
     con.unregister("drift_rows")

@@ -1,8 +1,8 @@
 """Income bands from configured fixed edges. A band is half-open: lower <= income < upper.
 
-This module is the one place a value is put in a band: training bands the out-of-fold estimates with it,
-and the amounts to publish get their band here too (stored in ml.predictions); SQL only looks bands up
-in ref.income_bands, which is written from `band_table`.
+This module is the one place a value is put in a band (`assign_band_index`): training bands the
+out-of-fold estimates with it, and `amounts.published_figures` the amounts to publish (stored in
+ml.predictions); SQL only looks bands up in ref.income_bands, which is written from `band_table`.
 """
 
 from __future__ import annotations
@@ -45,31 +45,6 @@ def band_table(edges: Sequence[float], currency: str) -> pd.DataFrame:
 def assign_band_index(values: np.ndarray | Sequence[float], edges: Sequence[float]) -> np.ndarray:
     """0-based band index of each value: the number of band edges at or below it."""
     return np.searchsorted(np.asarray(edges, dtype=float), np.asarray(values, dtype=float), side="right")
-
-
-def income_to_publish(
-    annual_salary: pd.Series,
-    observed_pension: pd.Series,
-    estimate: pd.Series,
-    edges: Sequence[float],
-    estimate_unit: float = 0.01,
-) -> pd.DataFrame:
-    """The amount each customer is published with and its band.
-
-    Observed salary wins, then an observed pension, then the model's estimate. Observed amounts are
-    rounded to cents; a model estimate to `estimate_unit` (its error is thousands: cents would be false
-    precision). Rounding happens before banding, so the published amount and its band always agree.
-    """
-    rounded_estimate = (estimate.astype("float64") / estimate_unit).round() * estimate_unit
-    value = (
-        annual_salary.astype("float64")
-        .fillna(observed_pension.astype("float64"))
-        .round(2)
-        .fillna(rounded_estimate.round(2))
-    )
-    return pd.DataFrame(
-        {"income_value": value, "band_index": assign_band_index(value, edges).astype("int32")}
-    )
 
 
 def band_agreement(y_true: np.ndarray, y_pred: np.ndarray, edges: Sequence[float]) -> dict[str, float]:

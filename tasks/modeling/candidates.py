@@ -35,6 +35,7 @@ from sklearn.preprocessing import OneHotEncoder, StandardScaler
 from sklearn.tree import DecisionTreeRegressor
 
 from ledgerband.tasks.core.settings import Settings, TrainSettings
+from ledgerband.tasks.modeling.amounts import CONFORMAL_FLOOR, never_negative
 from ledgerband.tasks.modeling.bands import assign_band_index
 
 BASELINES = ("baseline_mean", "baseline_median")
@@ -196,7 +197,7 @@ class Floored(RegressorMixin, BaseEstimator):
     Conformal scores proportional to the estimate (MAPIE's gamma score) need strictly positive estimates.
     """
 
-    def __init__(self, estimator, floor: float = 1.0):
+    def __init__(self, estimator, floor: float = CONFORMAL_FLOOR):
         self.estimator = estimator
         self.floor = floor
 
@@ -313,7 +314,7 @@ def score_split(job: SplitJob) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     out = {}
     for name, pipe in job.candidates.items():
         model = clone(pipe.named_steps["model"] if job.shared is not None else pipe)
-        pred = np.clip(model.fit(X_train, y[train]).predict(X_test), 0, None)  # incomes are never negative
+        pred = never_negative(model.fit(X_train, y[train]).predict(X_test))
         pred_band = assign_band_index(pred, job.edges)
         figures = np.array(
             [

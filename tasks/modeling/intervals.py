@@ -14,9 +14,7 @@ unlike); coverage is therefore measured, on held-out folds, overall, per band an
 The conformity score `gamma` makes the width proportional to the estimate (income errors grow with
 income); `absolute` gives everyone the same width.
 
-Band confidence: the share of the interval that lies inside the estimate's band, reading the interval as
-evenly spread between its bounds — 1 when the whole interval sits in one band, about 0.5 when a band edge
-cuts it in half. It is a plain-words guide, not a probability model.
+Bounds are floored and rounded by the one rule in `amounts` (band confidence is computed there too).
 """
 
 from __future__ import annotations
@@ -29,7 +27,7 @@ from mapie.regression import CrossConformalRegressor, SplitConformalRegressor
 from sklearn.model_selection import KFold, train_test_split
 
 from ledgerband.tasks.core.settings import Settings
-from ledgerband.tasks.modeling.bands import band_table
+from ledgerband.tasks.modeling.amounts import never_negative
 from ledgerband.tasks.modeling.candidates import Floored
 
 
@@ -70,9 +68,9 @@ def predict_intervals(model, X: pd.DataFrame) -> Intervals:
         point, pis = model.predict_interval(X, aggregate_point_predictions=None)  # the full-data model
     else:
         point, pis = model.predict_interval(X)
-    low = np.clip(pis[:, 0, 0], 0, None)
+    low = never_negative(pis[:, 0, 0])
     high = np.maximum(pis[:, 1, 0], low)
-    return Intervals(np.clip(point, 0, None), low, high)
+    return Intervals(never_negative(point), low, high)
 
 
 def held_out_intervals(pipe, X: pd.DataFrame, y: np.ndarray, settings: Settings, splits) -> Intervals:
@@ -91,23 +89,3 @@ def held_out_intervals(pipe, X: pd.DataFrame, y: np.ndarray, settings: Settings,
 
 def covered(y: np.ndarray, iv: Intervals) -> np.ndarray:
     return (y >= iv.low) & (y <= iv.high)
-
-
-def band_confidence(low: np.ndarray, high: np.ndarray, band_index: np.ndarray, edges) -> np.ndarray:
-    """Share of [low, high] inside the band `band_index` (1.0 for an interval of no width inside it)."""
-    bands = band_table(edges, "")
-    lower = bands["lower_bound"].fillna(-np.inf).to_numpy()[band_index]
-    upper = bands["upper_bound"].fillna(np.inf).to_numpy()[band_index]
-    width = high - low
-    inside = np.clip(np.minimum(high, upper) - np.maximum(low, lower), 0, None)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        share = np.where(width > 0, inside / width, ((low >= lower) & (low < upper)).astype(float))
-    return np.clip(share, 0, 1)
-
-
-def widen_to(low: np.ndarray, high: np.ndarray, unit: float) -> tuple[np.ndarray, np.ndarray]:
-    """Interval bounds on the published unit, rounded outwards: rounding never narrows an interval."""
-    return (
-        np.floor(np.asarray(low, dtype=float) / unit) * unit,
-        np.ceil(np.asarray(high, dtype=float) / unit) * unit,
-    )

@@ -26,9 +26,9 @@ from ledgerband.tasks.core.context import RunContext
 from ledgerband.tasks.core.errors import ModelFileRefused
 from ledgerband.tasks.core.settings import Settings
 from ledgerband.tasks.core.warehouse import open_warehouse
-from ledgerband.tasks.gates.drift import profile
 from ledgerband.tasks.ingest.extract_contract import sha256_file
-from ledgerband.tasks.modeling.bands import assign_band_index, income_to_publish
+from ledgerband.tasks.modeling.amounts import published_figures
+from ledgerband.tasks.modeling.bands import assign_band_index
 from ledgerband.tasks.modeling.candidates import (
     BASELINES,
     Comparison,
@@ -48,12 +48,10 @@ from ledgerband.tasks.modeling.diagnostics import (
 )
 from ledgerband.tasks.modeling.intervals import (
     Intervals,
-    band_confidence,
     covered,
     fit_conformal,
     held_out_intervals,
     predict_intervals,
-    widen_to,
 )
 
 
@@ -222,7 +220,7 @@ def code_version() -> dict[str, str]:
 def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainSummary:
     """Evaluate, refit the champion with its conformal intervals, store every figure in ml.*."""
     settings, run_id, period = ctx.settings, ctx.run_id, str(ctx.period)
-    t, iv, edges = settings.train, settings.intervals, settings.bands.edges
+    t, iv = settings.train, settings.intervals
     frame = model_frame(con)
     features = list(t.numeric_features) + list(t.categorical_features)
     is_labelled = frame["annual_salary"].notna().to_numpy()
@@ -268,16 +266,6 @@ def train_and_predict(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> TrainS
     con.register("prediction_rows", predictions)
     con.execute("insert into ml.predictions by name select * from prediction_rows")
     con.unregister("prediction_rows")
-    drift_profile = profile(
-        frame,
-        list(t.numeric_features),
-        predictions["band_index"].to_numpy(),
-        len(edges) + 1,
-        settings.drift.bins,
-    )
-    con.register("profile_rows", drift_profile.assign(run_id=run_id))
-    con.execute("insert into ml.drift_profiles by name select * from profile_rows")
-    con.unregister("profile_rows")
 
     model_path = _save_model(
         pipe,
@@ -331,7 +319,6 @@ ML_TABLES = (
     "ml.group_errors",
     "ml.learning_curve",
     "ml.population_shift",
-    "ml.drift_profiles",
 )
 
 
@@ -403,8 +390,8 @@ def _prediction_rows(
     out: Intervals,
     settings: Settings,
 ) -> pd.DataFrame:
-    """One row per customer: estimate and interval, held-out figures for the labelled, the published amount."""
-    iv, edges = settings.intervals, settings.bands.edges
+    """One row per customer: estimate, held-out figures for the labelled, and what readers get
+    (amounts.published_figures)."""
     n = len(frame)
     labelled_positions = np.flatnonzero(is_labelled)
     oof, oof_low, oof_high = (np.full(n, np.nan) for _ in range(3))
@@ -414,14 +401,11 @@ def _prediction_rows(
         ev.held_out.low,
         ev.held_out.high,
     )
-    low, high = widen_to(out.low, out.high, iv.round_to)
     rows = pd.DataFrame(
         {
             "run_id": run_id,
             "customer_id": frame["customer_id"],
             "estimate": out.estimate,
-            "estimate_low": low,
-            "estimate_high": high,
             "oof_estimate": oof,
             "oof_low": oof_low,
             "oof_high": oof_high,
@@ -429,24 +413,17 @@ def _prediction_rows(
             "observed_pension": frame["annual_pension"].astype("float64"),
         }
     )
-    rows = rows.join(
-        income_to_publish(
+    return rows.join(
+        published_figures(
             rows["annual_salary"],
             rows["observed_pension"],
             rows["estimate"],
-            edges,
-            estimate_unit=iv.round_to,
+            out.low,
+            out.high,
+            settings.bands.edges,
+            estimate_unit=settings.intervals.round_to,
         )
     )
-    rows["band_confidence"] = band_confidence(
-        rows["estimate_low"].to_numpy(),
-        rows["estimate_high"].to_numpy(),
-        rows["band_index"].to_numpy(),
-        edges,
-    )
-    observed = rows["annual_salary"].notna() | rows["observed_pension"].notna()
-    rows.loc[observed, ["estimate_low", "estimate_high", "band_confidence"]] = np.nan
-    return rows
 
 
 # Types skops does not trust by default that our saved champions contain: OneHotEncoder keeps its output

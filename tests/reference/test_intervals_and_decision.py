@@ -10,13 +10,8 @@ from sklearn.linear_model import LinearRegression
 
 from ledgerband.tasks.core.settings import Settings
 from ledgerband.tasks.gates.accuracy import accuracy_gate
-from ledgerband.tasks.modeling.intervals import (
-    band_confidence,
-    covered,
-    fit_conformal,
-    predict_intervals,
-    widen_to,
-)
+from ledgerband.tasks.modeling.amounts import band_confidence, widen_to
+from ledgerband.tasks.modeling.intervals import covered, fit_conformal, predict_intervals
 from ledgerband.tasks.modeling.train import TrainSummary, evaluate, summarise
 
 

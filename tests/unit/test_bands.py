@@ -32,14 +32,17 @@ def test_band_table_labels_and_bounds():
 def test_observed_salary_wins_then_an_observed_pension_then_the_estimate():
     import pandas as pd
 
-    from ledgerband.tasks.modeling.bands import income_to_publish
+    from ledgerband.tasks.modeling.amounts import published_figures
 
     salary = pd.Series([50_000.0, None, None])
     pension = pd.Series([12_000.0, 12_000.0, None])
     estimate = pd.Series([1.0, 2.0, 30_000.004])
-    got = income_to_publish(salary, pension, estimate, EDGES)
+    got = published_figures(salary, pension, estimate, estimate, estimate, EDGES)
     assert got["income_value"].tolist() == [50_000.0, 12_000.0, 30_000.0]
     assert got["band_index"].tolist() == [2, 0, 1]
+    assert got["band_source"].tolist() == ["observed_salary", "observed_pension", "model_estimate"]
+    # an observed amount carries no interval and no band confidence
+    assert got[["estimate_low", "estimate_high", "band_confidence"]].iloc[:2].isna().all().all()
 
 
 def test_band_agreement_counts_exact_and_adjacent_bands():
@@ -49,13 +52,14 @@ def test_band_agreement_counts_exact_and_adjacent_bands():
 
 
 def test_published_band_sql_agrees_with_python_at_every_edge(con):
-    """warehouse/sql/published/income_bands.sql only looks up the band set by bands.income_to_publish:
+    """warehouse/sql/published/income_bands.sql only looks up the band set by amounts.published_figures:
     the published band must be the Python band of the published (rounded) amount at every edge."""
     from datetime import datetime
 
     import pandas as pd
 
-    from ledgerband.tasks.modeling.bands import income_to_publish, write_band_table
+    from ledgerband.tasks.modeling.amounts import published_figures
+    from ledgerband.tasks.modeling.bands import write_band_table
     from ledgerband.tasks.publish.snapshot import insert_from_file
 
     write_band_table(con, EDGES, "EUR")
@@ -68,7 +72,7 @@ def test_published_band_sql_agrees_with_python_at_every_edge(con):
         {"run_id": "r1", "customer_id": [f"C{i}" for i in range(len(values))], "estimate": estimate}
     ).assign(annual_salary=observed)
     no_pension = pd.Series([None] * len(values), dtype="float64")
-    rows = rows.join(income_to_publish(observed, no_pension, estimate, EDGES))
+    rows = rows.join(published_figures(observed, no_pension, estimate, estimate, estimate, EDGES))
     con.register("rows", rows)
     con.execute("insert into ml.predictions by name select * from rows")
     insert_from_file(
@@ -102,7 +106,7 @@ def test_a_backfilled_month_never_moves_readers_back_in_time(con):
 
     from ledgerband.tasks.core.context import RunContext
     from ledgerband.tasks.core.settings import Settings
-    from ledgerband.tasks.modeling.bands import income_to_publish
+    from ledgerband.tasks.modeling.amounts import published_figures
     from ledgerband.tasks.publish.snapshot import publish_snapshot
 
     con.execute("create schema if not exists features")
@@ -113,7 +117,9 @@ def test_a_backfilled_month_never_moves_readers_back_in_time(con):
         rows = pd.DataFrame(
             {"run_id": [run_id], "customer_id": ["C1"], "estimate": [1.0], "annual_salary": salary}
         )
-        rows = rows.join(income_to_publish(salary, none, rows["estimate"], EDGES))
+        rows = rows.join(
+            published_figures(salary, none, rows["estimate"], rows["estimate"], rows["estimate"], EDGES)
+        )
         con.register("rows", rows)
         con.execute("insert into ml.predictions by name select * from rows")
         ctx = RunContext.create(period, settings=Settings(), run_id=run_id)
