@@ -79,11 +79,11 @@ create table if not exists quarantine.ledger_lines (
     quarantined_at timestamp not null
 );
 
--- The txn_ids the repeated-booking rule (txn_id_not_loaded_before) compares a new extract with: every
--- record of an accepted ledger load that was not quarantined. Narrow, so the check reads two columns
--- instead of raw.ledger_lines joined to ops.loads and the quarantine. Kept by
--- tasks/quality/accepted_txn_ids.py, which records each held load with its quarantined count and
--- brings the table in line with ops.loads before every check (new, restated or re-quarantined loads), so it is never trusted blindly.
+-- The txn_ids the repeated-booking rule (txn_id_not_loaded_before) compares a new extract with: every record
+-- of an accepted ledger load that was not quarantined. Narrow, so the check reads two columns instead of
+-- raw.ledger_lines joined to ops.loads and the quarantine. Kept by tasks/quality/accepted_txn_ids.py, which
+-- records each held load with its quarantined count and brings the table in line with ops.loads before every
+-- check (new, restated or re-quarantined loads), so it is never trusted blindly.
 create table if not exists ops.accepted_txn_ids (
     txn_id varchar not null,
     load_id varchar not null
