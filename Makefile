@@ -43,7 +43,7 @@ test-scale: venv ## the month on buckets and on a local 2-worker Dask cluster, e
 
 check: test test-integration test-crash test-scale ## everything CI runs (after `make browser`)
 
-bench: venv ## benchmark the monthly flow at 10k and 100k customers beside plain DuckDB (BENCH_SIZES, BENCH_MONTHS)
+bench: venv ## benchmark the monthly flow at 10k and 100k customers beside plain DuckDB (BENCH_SIZES, BENCH_MONTHS, BENCH_MONTHLY)
 	$(BIN)/python -m pytest -m bench -s -p no:cacheprovider
 
 lint: venv ## ruff (style, imports, bugbear) and sqlfluff (the DuckDB SQL under warehouse/)

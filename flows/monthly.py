@@ -170,7 +170,7 @@ def _run(ctx: RunContext) -> RunResult:
 def _artifacts(ctx: RunContext, status: str, report) -> None:
     try:
         run_artifacts(ctx, status, report)
-    except Exception as exc:  # noqa: BLE001 - the run's page decoration never fails a run
+    except Exception as exc:  # the run's page decoration never fails a run
         get_run_logger().warning("could not create the run's Prefect artifacts: %s", exc)
 
 
@@ -178,6 +178,6 @@ def _best_effort(log: RunLog, stage: str, task_fn, *args):
     """A follow-up stage on the way out of a stopped run; its failure must not hide the stop."""
     try:
         return log.run(stage, task_fn, *args, detail=str)
-    except Exception as exc:  # noqa: BLE001 - reported, then the original stop is raised
+    except Exception as exc:  # reported, then the original stop is raised
         get_run_logger().warning("%s failed after the run stopped: %s", task_fn.name, exc)
         return None

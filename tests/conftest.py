@@ -86,7 +86,7 @@ def http_sink():
     received: list[dict] = []
 
     class Handler(BaseHTTPRequestHandler):
-        def do_POST(self):  # noqa: N802 - the http.server API
+        def do_POST(self):  # the http.server API
             body = self.rfile.read(int(self.headers.get("Content-Length", 0)))
             received.append({"path": self.path, "body": _json.loads(body or b"{}")})
             self.send_response(200)
@@ -115,7 +115,7 @@ def smtp_sink():
     received: list[dict] = []
 
     class Handler:
-        async def handle_DATA(self, server, session, envelope):  # noqa: N802 - the aiosmtpd API
+        async def handle_DATA(self, server, session, envelope):  # the aiosmtpd API
             received.append(
                 {"from": envelope.mail_from, "to": envelope.rcpt_tos, "content": envelope.content.decode()}
             )

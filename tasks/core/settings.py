@@ -275,7 +275,7 @@ class ScaleSettings(_Section):
 
     memory_limit: str = Field("2GB", pattern=r"^(\d+(\.\d+)?\s*(KB|MB|GB|TB|KiB|MiB|GiB|TiB)|)$")
     """DuckDB's memory limit for the warehouse's work (it spills to disk beyond it); empty: DuckDB's own
-    default, 80% of the machine's memory. Measured at 100k customers x 4 months: see DEVELOPERS.md."""
+    default, 80% of the machine's memory. Measured at 100k customers x 4 months: docs/bench.md."""
     threads: int = Field(0, ge=0)
     """DuckDB's threads; 0: one per core."""
     temp_directory: str = ""

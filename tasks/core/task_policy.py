@@ -21,7 +21,7 @@ def minutes_setting(name: str, default: float) -> float:
         from ledgerband.tasks.core.settings import get_settings
 
         return float(getattr(get_settings().schedule, name)) * 60
-    except Exception:  # noqa: BLE001
+    except Exception:
         return default * 60
 
 

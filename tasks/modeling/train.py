@@ -1,8 +1,8 @@
 """Train: compare the candidates, bound the champion's skill, put an interval on every estimate.
 
 Labelled customers are those whose salary is paid here (features.customer_salary). `evaluate` is the
-pure part (frames in, figures out; see ledgerband.tasks.modeling.candidates, .intervals and .assess); this module
-adds what needs the warehouse: reading the frame, writing ml.*, saving the champion and its card.
+pure part (frames in, figures out; see ledgerband.tasks.modeling.candidates, .intervals and
+.diagnostics); this module adds what needs the warehouse: reading the frame, writing ml.*, saving the champion and its card.
 """
 
 from __future__ import annotations

@@ -37,7 +37,7 @@ def _log_stage(ctx: RunContext, record: dict) -> None:
         from prefect import get_run_logger
 
         logger = get_run_logger()
-    except Exception:  # noqa: BLE001 - outside a flow run there is no run log
+    except Exception:  # outside a flow run there is no run log
         return
     level = logging.INFO if record["status"] == "ok" else logging.WARNING
     detail = json.dumps(record["detail"], default=str) if record["detail"] is not None else ""

@@ -122,7 +122,7 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, ctx: RunContext, model_vers
 
 HISTORY_TABLES = ("income_bands_history", "band_summary_history", "band_movers_history")
 # Columns that name the run (or its model) that wrote a row, or when: not part of a snapshot's content.
-RUN_NAMING_COLUMNS = frozenset({"run_id", "model_version", "snapshot_id", "published_at"})
+RUN_NAMING_COLUMNS = frozenset({"run_id", "model_version", "published_at"})
 
 
 def replace_identical_crashed_snapshots(

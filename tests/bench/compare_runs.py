@@ -77,12 +77,12 @@ def dump(home: Path, out: Path) -> None:
         # too, so a table that gained a column is still compared on the ones it kept.
         bind = {"home": str(home)} if any("$home" in e for e in exprs) else None
         sums = ", ".join(f"coalesce(sum(hash({e}))::hugeint, 0)::varchar" for e in [", ".join(exprs), *exprs])
-        n, digest, *per_column = con.execute(  # noqa: S608 - names from the catalogue
+        n, digest, *per_column = con.execute(  # names from the catalogue
             f"select count(*)::bigint, {sums} from {schema}.{table}", bind
         ).fetchall()[0]
         sample = con.execute(
             f"select {', '.join(exprs)} from {schema}.{table} order by all limit 3", bind
-        ).fetchall()  # noqa: S608
+        ).fetchall()
         result["tables"][f"{schema}.{table}"] = {
             "columns": cols,
             "rows": n,

@@ -129,7 +129,7 @@ def warehouse_folder(home: Path) -> dict:
     error = None
     try:
         publish_snapshot(con, RunContext.create(period, settings=s, run_id=new), "v-disk-full")
-    except Exception as exc:  # noqa: BLE001 - whatever DuckDB raises is what the operator would see
+    except Exception as exc:  # whatever DuckDB raises is what the operator would see
         error = f"{type(exc).__name__}: {exc}"
     con.close()
     (folder / "filler").unlink()
