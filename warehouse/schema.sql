@@ -1,7 +1,11 @@
--- ledgerband warehouse schema. Idempotent: applied at the start of every run.
--- Layers are schemas: raw -> staging -> intermediate -> features -> published, plus quarantine, ml, ops
--- and ref. Tables and views built wholesale by a layer's SQL file (staging.*, intermediate.*, features.*)
--- are created by that file.
+-- ledgerband warehouse schema: every table that outlives a run, in its final form. Idempotent: applied at
+-- the start of every run. Layers are schemas: raw -> staging -> intermediate -> features -> published,
+-- plus quarantine, ml, ops and ref. Tables and views built wholesale by a layer's SQL file (staging.*,
+-- intermediate.*, features.*) are created by that file.
+-- A warehouse written by an earlier version is brought to this form by warehouse/migrations/ (applied in
+-- order, each once, recorded in ops.schema_migrations; see ledgerband.tasks.core.warehouse.apply_schema).
+-- Change a table here AND add a migration for warehouses that exist; tests/sql/test_schema_migration.py
+-- holds the two equal.
 
 create schema if not exists raw;
 create schema if not exists staging;
@@ -30,10 +34,16 @@ create table if not exists ops.loads (
     reason varchar,
     run_id varchar,
     loaded_at timestamp not null,
-    decided_at timestamp
+    decided_at timestamp,
+    last_seen_at timestamp                 -- last handed to a run (a file sent again: skipped, but latest)
 );
--- When the file was last handed to a run (a file sent again is skipped, but becomes the latest again).
-alter table ops.loads add column if not exists last_seen_at timestamp;
+
+-- The migrations (warehouse/migrations/NNN_name.sql) this warehouse has had.
+create table if not exists ops.schema_migrations (
+    version integer primary key,
+    name varchar not null,
+    applied_at timestamp not null
+);
 
 -- Ledger records exactly as received (text), with lineage. Grain: one row per data record of a file.
 create table if not exists raw.ledger_lines (
@@ -132,7 +142,12 @@ create table if not exists ml.model_runs (
     rmse_mean double, rmse_std double, mae_mean double, mae_std double,
     n_labelled bigint, n_folds bigint,
     is_champion boolean not null,
-    created_at timestamp not null
+    created_at timestamp not null,
+    band_accuracy_mean double,
+    within_one_band_mean double,
+    n_compared bigint,
+    is_baseline boolean,
+    model_sha256 varchar                   -- of the champion's skops file: loaded only when it matches
 );
 
 create table if not exists ml.cv_scores (
@@ -140,43 +155,34 @@ create table if not exists ml.cv_scores (
     candidate varchar not null,
     split_index bigint not null,
     rmse double not null,
-    mae double not null
+    mae double not null,
+    repeat_index bigint,
+    fold_index bigint,
+    band_accuracy double,
+    within_one_band double
 );
 
--- Grain: one row per (run_id, customer_id): the champion's estimate for every customer.
+-- Grain: one row per (run_id, customer_id): the champion's estimate for every customer, the held-out
+-- figures of the labelled (ledgerband.tasks.modeling.intervals: for labelled customers in the comparison,
+-- the estimate and interval of a conformal model that never saw them; coverage is measured on these), and
+-- what readers get, decided once by ledgerband.tasks.modeling.amounts.published_figures (the publish SQL
+-- only reads it).
 create table if not exists ml.predictions (
     run_id varchar not null,
     customer_id varchar not null,
     estimate double not null,
     oof_estimate double,                   -- out-of-fold estimate for labelled customers (band metrics)
-    annual_salary double                   -- observed label, null when the salary is not paid here
+    annual_salary double,                  -- observed label, null when the salary is not paid here
+    income_value double,                   -- the published amount
+    band_index integer,                    -- its band
+    observed_pension double,               -- a pension read from its credits (payroll.pensions_observed)
+    estimate_low double,                   -- the published interval, rounded outwards (null: observed)
+    estimate_high double,
+    band_confidence double,                -- share of the interval inside the band, two decimals
+    oof_low double,
+    oof_high double,
+    band_source varchar                    -- observed_salary | observed_pension | model_estimate
 );
--- What readers get, decided once by ledgerband.tasks.modeling.amounts.published_figures: the amount to
--- publish and its band; the publish SQL only reads them.
-alter table ml.predictions add column if not exists income_value double;
-alter table ml.predictions add column if not exists band_source varchar;
-alter table ml.predictions add column if not exists band_index integer;
--- A pension read from its credits (payroll.pensions_observed), published as observed income.
-alter table ml.predictions add column if not exists observed_pension double;
-
--- Intervals and held-out figures (ledgerband.tasks.modeling.intervals): the interval around every estimate,
--- rounded outwards to intervals.round_to; for labelled customers in the comparison, the estimate and
--- interval of a conformal model that never saw them (coverage is measured on these).
-alter table ml.predictions add column if not exists estimate_low double;
-alter table ml.predictions add column if not exists estimate_high double;
-alter table ml.predictions add column if not exists band_confidence double;
-alter table ml.predictions add column if not exists oof_low double;
-alter table ml.predictions add column if not exists oof_high double;
-alter table ml.model_runs add column if not exists band_accuracy_mean double;
-alter table ml.model_runs add column if not exists within_one_band_mean double;
-alter table ml.model_runs add column if not exists n_compared bigint;
-alter table ml.model_runs add column if not exists is_baseline boolean;
--- SHA-256 of the champion's saved skops file (champion row only): a model is loaded only when it matches.
-alter table ml.model_runs add column if not exists model_sha256 varchar;
-alter table ml.cv_scores add column if not exists repeat_index bigint;
-alter table ml.cv_scores add column if not exists fold_index bigint;
-alter table ml.cv_scores add column if not exists band_accuracy double;
-alter table ml.cv_scores add column if not exists within_one_band double;
 
 -- Grain: one row per (run_id, attribute, group_name). Out-of-fold error of the champion by group
 -- (Fairlearn MetricFrame); attribute 'observed_band' holds interval coverage per observed band.
@@ -240,12 +246,10 @@ create table if not exists published.decisions (
     reason varchar not null,
     figures json not null,
     thresholds json not null,
-    decided_at timestamp not null
+    decided_at timestamp not null,
+    check_name varchar,                    -- which check decided (e.g. manifest_reconciliation)
+    subject varchar                        -- on what: an extract's file name, or 'run'
 );
--- Which check of the gate decided (e.g. manifest_reconciliation, quarantine_share), and on what: an
--- extract's file name, or 'run' for a check of the whole run.
-alter table published.decisions add column if not exists check_name varchar;
-alter table published.decisions add column if not exists subject varchar;
 
 create table if not exists published.snapshots (
     run_id varchar primary key,
@@ -257,21 +261,23 @@ create table if not exists published.snapshots (
     published_at timestamp not null
 );
 
+-- The published tables' history: one snapshot per publishing run. Columns in the readers' order
+-- (ledgerband.tasks.publish.readers_contract): the current views and the history show the same columns
+-- in the same order.
 create table if not exists published.income_bands_history (
     run_id varchar not null,
     period varchar not null,
     customer_id varchar not null,
     income_band varchar not null,
-    band_source varchar not null,          -- 'observed_salary' | 'model_estimate'
+    band_source varchar not null,          -- observed_salary | observed_pension | model_estimate
     annual_income_estimate decimal(18, 2) not null,
+    currency varchar,
+    estimate_low decimal(18, 2),           -- a model estimate's interval at intervals.level
+    estimate_high decimal(18, 2),
+    band_confidence decimal(3, 2),         -- share of it inside the published band
     model_version varchar not null,
     published_at timestamp not null
 );
-
--- A model estimate's interval at intervals.level and the share of it inside the published band.
-alter table published.income_bands_history add column if not exists estimate_low decimal(18, 2);
-alter table published.income_bands_history add column if not exists estimate_high decimal(18, 2);
-alter table published.income_bands_history add column if not exists band_confidence decimal(3, 2);
 
 create table if not exists published.band_summary_history (
     run_id varchar not null,
@@ -279,19 +285,9 @@ create table if not exists published.band_summary_history (
     income_band varchar not null,
     home_region varchar not null,
     band_source varchar not null,
-    customer_count bigint not null
+    customer_count bigint not null,
+    suppressed boolean
 );
-
--- Readers see only the current snapshot; publishing moves `is_current` inside one transaction.
-create or replace view published.income_bands as
-select
-    h.* exclude (h.published_at),
-    h.published_at
-from published.income_bands_history as h
-inner join published.snapshots as s on s.run_id = h.run_id and s.is_current;
-
-alter table published.income_bands_history add column if not exists currency varchar;
-alter table published.band_summary_history add column if not exists suppressed boolean;
 
 create table if not exists published.band_movers_history (
     run_id varchar not null,
@@ -303,6 +299,13 @@ create table if not exists published.band_movers_history (
     customer_count bigint not null,
     suppressed boolean not null
 );
+
+-- Readers see only the current snapshot; publishing moves `is_current` inside one transaction. This is
+-- the one definition of "current": the readers' copy, exports and reports read these views.
+create or replace view published.income_bands as
+select h.*
+from published.income_bands_history as h
+inner join published.snapshots as s on s.run_id = h.run_id and s.is_current;
 
 create or replace view published.band_movers as
 select h.*

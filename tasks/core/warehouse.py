@@ -34,6 +34,7 @@ PACKAGE = "ledgerband.warehouse"
 BUILT_LAYERS = ("staging", "intermediate", "features")
 _READS = re.compile(r"^--\s*Reads:\s*(?P<names>[^\n]*)$", re.MULTILINE)
 _MATERIALIZED = re.compile(r"^--\s*Materialized:\s*(?P<kind>table|view)\b", re.MULTILINE)
+_MIGRATION = re.compile(r"(?P<version>\d{3})_(?P<name>[a-z0-9_]+)\.sql")
 _PER_CUSTOMER = re.compile(r"^--\s*Scope:\s*per customer\b", re.MULTILINE)
 _TABLE_NAME = re.compile(r"\b([a-z_]+)\.([a-z_]+)\b")
 
@@ -252,12 +253,58 @@ def layer_models(layers: tuple[str, ...] = BUILT_LAYERS) -> list[SqlModel]:
     return [models[rel] for rel in order]
 
 
-def apply_schema(con: duckdb.DuckDBPyConnection) -> None:
-    """Create every schema and table (idempotent), then the views the load stages read."""
+@dataclass(frozen=True)
+class Migration:
+    """`warehouse/migrations/<version>_<name>.sql`: brings a warehouse of an earlier version forward."""
+
+    version: int
+    name: str
+    sql: str
+
+
+def migrations() -> list[Migration]:
+    """Every migration the package ships, in version order."""
+    found = []
+    for node in _resource("migrations").iterdir():
+        match = _MIGRATION.fullmatch(node.name)
+        if match:
+            found.append(Migration(int(match["version"]), match["name"], node.read_text(encoding="utf-8")))
+    return sorted(found, key=lambda m: m.version)
+
+
+def _table_exists(con: duckdb.DuckDBPyConnection, relation: str) -> bool:
+    return bool(columns_of(con, relation))
+
+
+def apply_schema(con: duckdb.DuckDBPyConnection) -> list[int]:
+    """Create every schema and table in its final form (idempotent); bring a warehouse written by an
+    earlier version to that form with the migrations it has not had; then the views the load stages read.
+    Returns the versions of the migrations run (none for a new warehouse, which is born in final form).
+
+    Each migration commits with its row in ops.schema_migrations, or not at all: a run killed during
+    one finds the warehouse as it was and runs it again.
+    """
+    new_warehouse = not _table_exists(con, "ops.loads")
     con.execute(_resource("schema.sql").read_text(encoding="utf-8"))
+    done = {v for (v,) in con.execute("select version from ops.schema_migrations").fetchall()}
+    ran = []
+    for migration in migrations():
+        if migration.version in done:
+            continue
+        with transaction(con):
+            if not new_warehouse:
+                con.execute(migration.sql)
+                ran.append(migration.version)
+            con.execute(
+                "insert into ops.schema_migrations values (?, ?, current_localtimestamp())",
+                [migration.version, migration.name],
+            )
+    if ran:  # views keep the columns of the tables they were made on: make them again on the new tables
+        con.execute(_resource("schema.sql").read_text(encoding="utf-8"))
     for model in layer_models():
         if model.materialized == "view":
             model.build(con)
+    return ran
 
 
 def build_layers(

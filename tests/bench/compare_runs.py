@@ -31,6 +31,10 @@ VOLATILE = re.compile(
 UUID = r"[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}"
 VERSION_RUN = r"(\d{4}-\d{2}\.[a-z_]+\.)[0-9a-f]{8}"  # model_version: period.champion.<run id's start>
 MASKS = [
+    (re.compile(r"\b\d{8}T\d{6}\b"), "<stamp>"),  # load ids start with their load time
+    (re.compile(r"\b(image)?[mph]?[0-9a-f]{10}\b"), "<svg-id>"),  # matplotlib's per-drawing marker, clip, hatch ids
+    (re.compile(r'<td class="n">\d+\.\d+</td></tr>'), "<stage seconds>"),  # the run page's timings
+    (re.compile(r"iVBORw0KGgo[A-Za-z0-9+/=]+"), "<png>"),  # an embedded PNG carries its creation time
     (re.compile(r"\b[0-9a-f]{8,}(-[0-9a-f]{4,})*\b"), "<id>"),
     (re.compile(r"\d{4}-\d{2}-\d{2}[T ]\d{2}:\d{2}(:\d{2}(\.\d+)?)?(\+\d{2}:?\d{2}|Z| UTC)?"), "<time>"),
     (re.compile(r"\b\d+(\.\d+)? ?(s|min|seconds|minutes|ms)\b"), "<dur>"),
@@ -39,31 +43,36 @@ MASKS = [
 ]
 
 
-def _types(con, schema, table):
+def _types(con, catalog, schema, table):
     return con.execute(
-        "select column_name, data_type from information_schema.columns where table_schema = ? and table_name = ?"
-        " order by ordinal_position",
-        [schema, table],
+        "select column_name, data_type from information_schema.columns where table_catalog = ? and "
+        "table_schema = ? and table_name = ? order by ordinal_position",
+        [catalog, schema, table],
     ).fetchall()
 
 
 def dump(home: Path, out: Path) -> None:
     con = duckdb.connect(str(home / "warehouse.duckdb"), read_only=True)
+    # The readers' copy too: what readers open, views resolved into tables.
+    con.execute(f"attach '{home / 'published' / 'ledgerband_published.duckdb'}' as readers (read_only)")
     tables = con.execute(
-        "select table_schema, table_name from information_schema.tables where table_schema in "
-        f"({', '.join('?' * len(SCHEMAS))}) order by 1, 2",
+        "select table_schema, table_name, table_catalog from information_schema.tables where "
+        f"(table_schema in ({', '.join('?' * len(SCHEMAS))}) and table_catalog = 'warehouse') "
+        "or table_catalog = 'readers' order by all",
         list(SCHEMAS),
     ).fetchall()
     result: dict = {"tables": {}, "report": ""}
-    for schema, table in tables:
+    for schema, table, catalog in tables:
+        relation = f"{catalog}.{schema}.{table}"
+        name = f"readers.{table}" if catalog == "readers" else f"{schema}.{table}"
         cols = [
             c
-            for c, t in _types(con, schema, table)
+            for c, t in _types(con, catalog, schema, table)
             if not VOLATILE.search(c) and not t.startswith("TIMESTAMP")
         ]
         if not cols:
             continue
-        types = dict(_types(con, schema, table))
+        types = dict(_types(con, catalog, schema, table))
         # Text names the state folder and run ids where a run mentions itself: masked, not compared.
         exprs = [
             f"regexp_replace(regexp_replace(regexp_replace(\"{c}\"::varchar, $home, '<home>', 'g'), "
@@ -77,13 +86,13 @@ def dump(home: Path, out: Path) -> None:
         # too, so a table that gained a column is still compared on the ones it kept.
         bind = {"home": str(home)} if any("$home" in e for e in exprs) else None
         sums = ", ".join(f"coalesce(sum(hash({e}))::hugeint, 0)::varchar" for e in [", ".join(exprs), *exprs])
-        n, digest, *per_column = con.execute(  # names from the catalogue
-            f"select count(*)::bigint, {sums} from {schema}.{table}", bind
+        n, digest, *per_column = con.execute(  # relation names from the catalogue
+            f"select count(*)::bigint, {sums} from {relation}", bind
         ).fetchall()[0]
         sample = con.execute(
-            f"select {', '.join(exprs)} from {schema}.{table} order by all limit 3", bind
+            f"select {', '.join(exprs)} from {relation} order by all limit 3", bind
         ).fetchall()
-        result["tables"][f"{schema}.{table}"] = {
+        result["tables"][name] = {
             "columns": cols,
             "rows": n,
             "sha256": digest,
@@ -91,13 +100,15 @@ def dump(home: Path, out: Path) -> None:
             "sample": [json.dumps(r, default=str) for r in sample],
         }
     con.close()
-    reports = sorted((home / "reports").rglob("*.html"), key=lambda p: p.stat().st_mtime)
-    runs = [p for p in reports if "validation" not in p.name]
-    if runs:
-        text = runs[-1].read_text()
-        for pattern, mask in MASKS:
-            text = pattern.sub(mask, text)
-        result["report"] = text
+    # Every run report and validation page (index pages only link them), in run order.
+    pages = sorted(
+        (p for p in (home / "reports").rglob("*.html") if p.name != "index.html"),
+        key=lambda p: p.stat().st_mtime,
+    )
+    text = "\n".join(p.read_text() for p in pages)
+    for pattern, mask in MASKS:
+        text = pattern.sub(mask, text)
+    result["report"] = text
     out.write_text(json.dumps(result, indent=1))
 
 
