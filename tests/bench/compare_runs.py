@@ -32,7 +32,10 @@ UUID = r"[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}"
 VERSION_RUN = r"(\d{4}-\d{2}\.[a-z_]+\.)[0-9a-f]{8}"  # model_version: period.champion.<run id's start>
 MASKS = [
     (re.compile(r"\b\d{8}T\d{6}\b"), "<stamp>"),  # load ids start with their load time
-    (re.compile(r"\b(image)?[mph]?[0-9a-f]{10}\b"), "<svg-id>"),  # matplotlib's per-drawing marker, clip, hatch ids
+    (
+        re.compile(r"\b(image)?[mph]?[0-9a-f]{10}\b"),
+        "<svg-id>",
+    ),  # matplotlib's per-drawing marker, clip, hatch ids
     (re.compile(r'<td class="n">\d+\.\d+</td></tr>'), "<stage seconds>"),  # the run page's timings
     (re.compile(r"iVBORw0KGgo[A-Za-z0-9+/=]+"), "<png>"),  # an embedded PNG carries its creation time
     (re.compile(r"\b[0-9a-f]{8,}(-[0-9a-f]{4,})*\b"), "<id>"),
