@@ -8,7 +8,7 @@ from datetime import datetime
 from pathlib import Path
 
 from ledgerband.tasks.core.period import Period, Window
-from ledgerband.tasks.core.settings import Settings, get_settings
+from ledgerband.tasks.core.settings import PayrollSettings, Settings, get_settings
 
 
 @dataclass(frozen=True)
@@ -60,15 +60,30 @@ class RunContext:
 
     def layer_params(self) -> dict:
         """Bound parameters of the layer SQL files (each file binds the ones it uses)."""
-        payroll = self.settings.payroll
         return {
             "window_start": self.window.start,
             "window_end": self.window.end,
             "salary_window_start": self.salary_window.start,
             "large_debit_threshold": self.settings.features.large_debit_threshold,
-            "min_payer_customers": payroll.min_payer_customers,
-            "max_missed_runs": payroll.max_missed_runs,
-            "due_grace_days": payroll.due_grace_days,
-            "max_last_pay_change": payroll.max_last_pay_change,
-            "pensions_observed": payroll.pensions_observed,
+            **payroll_params(self.settings.payroll),
         }
+
+
+PAYROLL_PARAMETERS = (
+    "min_payer_customers",
+    "max_missed_runs",
+    "due_grace_days",
+    "max_last_pay_change",
+    "pensions_observed",
+    "explained_per_left_over",
+    "same_day_bonus_multiple",
+    "steady_pay_peak",
+    "semi_monthly_halves_ratio",
+    "unexplained_current_days",
+    "early_pay_days",
+)
+
+
+def payroll_params(payroll: PayrollSettings) -> dict:
+    """The payroll settings the salary SQL files bind, under their own names."""
+    return {name: getattr(payroll, name) for name in PAYROLL_PARAMETERS}

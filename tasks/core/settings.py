@@ -223,6 +223,20 @@ class PayrollSettings(_Section):
     """A pension read from its credits is published as observed income (its own band_source)."""
     min_payer_customers: int = Field(3, ge=1)
     """An uncoded payer counts as an employer when it pays at least this many customers (or codes salary)."""
+    explained_per_left_over: int = Field(3, ge=1)
+    """A calendar fits a stream only when the payments it leaves over (bonuses, one-offs) are at most one
+    per this many it explains."""
+    same_day_bonus_multiple: float = Field(1.5, gt=1)
+    """An explained payment over this multiple of the pay amount carries a bonus paid on the pay day."""
+    steady_pay_peak: float = Field(1.25, gt=1)
+    """Pay is steady when no explained payment is more than this multiple of the median."""
+    semi_monthly_halves_ratio: float = Field(1.25, gt=1)
+    """Two payments a month are semi-monthly pay only when the larger is at most this multiple of the smaller."""
+    unexplained_current_days: int = Field(35, ge=1)
+    """A stream no calendar explains is current when it paid within this many days (+ due_grace_days)."""
+    early_pay_days: int = Field(10, ge=0)
+    """A payment at most this many days before the next due day, after the last explained one, is that run
+    paid early (pay brought forward before holidays): the stream stays current."""
 
     @field_validator("holidays")
     @classmethod

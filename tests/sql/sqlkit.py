@@ -108,6 +108,7 @@ WINDOW = {"window_start": date(2026, 8, 1), "window_end": date(2026, 10, 31), "l
 
 def build_salary(con, window: dict = WINDOW, **payroll) -> None:
     """Build the salary layers for `window` with default payroll settings (overridden by `payroll`)."""
+    from ledgerband.tasks.core.context import payroll_params
     from ledgerband.tasks.core.period import Period
     from ledgerband.tasks.core.settings import Settings
     from ledgerband.tasks.core.warehouse import run_sql_file
@@ -121,11 +122,7 @@ def build_salary(con, window: dict = WINDOW, **payroll) -> None:
     params = {
         "salary_window_start": window["window_start"],
         **window,
-        "min_payer_customers": settings.payroll.min_payer_customers,
-        "max_missed_runs": settings.payroll.max_missed_runs,
-        "due_grace_days": settings.payroll.due_grace_days,
-        "max_last_pay_change": settings.payroll.max_last_pay_change,
-        "pensions_observed": settings.payroll.pensions_observed,
+        **payroll_params(settings.payroll),
     }
     for layer, name in (
         ("intermediate", "received_credits"),

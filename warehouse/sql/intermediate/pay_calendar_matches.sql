@@ -3,7 +3,7 @@
 -- Key: customer_id, payer_id, booking_date, pattern, pattern_param, slot.
 -- Reads: intermediate.payroll_credits, intermediate.pay_calendars.
 -- Scope: per customer (built per bucket of customers).
--- Parameters: $max_missed_runs.
+-- Parameters: $max_missed_runs, $explained_per_left_over.
 -- Only streams of two or more payments, only the calendar families their mean gap allows, and only the
 -- calendars that could be a fit (`possible` below).
 -- recency: 1 for the latest credit a calendar matches in the stream, 2 for the one before, …
@@ -84,7 +84,7 @@ possible as (
     where
         shapes.match_count >= 2
         and shapes.missed_runs <= $max_missed_runs
-        and streams.payment_count - shapes.match_count <= shapes.match_count // 3
+        and streams.payment_count - shapes.match_count <= shapes.match_count // $explained_per_left_over
 ),
 
 final as (

@@ -4,7 +4,8 @@
 -- Reads: intermediate.payroll_credits, intermediate.pay_calendar_matches, intermediate.pay_calendars,
 -- ref.business_calendar, ref.pay_frequencies.
 -- Scope: per customer (built per bucket of customers).
--- Parameters: $max_missed_runs.
+-- Parameters: $max_missed_runs, $explained_per_left_over, $same_day_bonus_multiple, $steady_pay_peak,
+-- $semi_monthly_halves_ratio.
 -- A pay calendar names the nominal pay days; pay due on a weekend or holiday lands on the business day
 -- before or after it (ref.business_calendar), the same way every time for one employer. Calendars tried,
 -- each with every parameter the payments allow:
@@ -83,15 +84,17 @@ fits as (
 ),
 
 excess as (
-    -- an explained payment over 1.5 times the pay amount carries a bonus paid on the pay day: the part
-    -- above the pay amount
+    -- an explained payment over payroll.same_day_bonus_multiple times the pay amount carries a bonus
+    -- paid on the pay day: the part above the pay amount
     select
         ranked.customer_id,
         ranked.payer_id,
         ranked.pattern,
         ranked.pattern_param,
         coalesce(
-            sum(ranked.amount - fits.recent_amount) filter (where ranked.amount > 1.5 * fits.recent_amount), 0
+            sum(ranked.amount - fits.recent_amount)
+            filter (where ranked.amount > $same_day_bonus_multiple * fits.recent_amount),
+            0
         ) as same_day_bonus_amount
     from ranked
     inner join fits
@@ -170,7 +173,7 @@ final as (
         one_to_one.same_day_bonus_amount,
         -- no explained payment more than 25% above the median: pay, rather than a bonus folded into the
         -- calendar (a payment below is the old level before a rise, which is no sign either way)
-        coalesce(one_to_one.amount_peak <= 1.25, false) as is_steady,
+        coalesce(one_to_one.amount_peak <= $steady_pay_peak, false) as is_steady,
         -- Four-weekly pay is told from monthly pay only by three gaps that a monthly calendar cannot
         -- explain; with fewer, the fit still competes (and makes the stream ambiguous) but is not chosen.
         -- Two payments a month of different sizes (a salary and an allowance, two employers without a payer
@@ -178,7 +181,7 @@ final as (
         (one_to_one.frequency <> 'four_weekly' or one_to_one.explained_count >= 4)
         and (
             one_to_one.frequency <> 'semi_monthly'
-            or one_to_one.highest_amount <= 1.25 * one_to_one.lowest_amount
+            or one_to_one.highest_amount <= $semi_monthly_halves_ratio * one_to_one.lowest_amount
         ) as is_choosable
     from one_to_one
     inner join frequencies on frequencies.frequency = one_to_one.frequency
@@ -192,7 +195,7 @@ final as (
     -- allowed pay runs is not the stream's calendar
     where
         one_to_one.missed_runs <= $max_missed_runs
-        and one_to_one.extra_count <= one_to_one.explained_count // 3
+        and one_to_one.extra_count <= one_to_one.explained_count // $explained_per_left_over
 )
 
 select * from final

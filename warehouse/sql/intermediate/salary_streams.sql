@@ -3,7 +3,8 @@
 -- Key: customer_id, payer_id.
 -- Reads: intermediate.payroll_credits, intermediate.pay_schedule_fits.
 -- Scope: per customer (built per bucket of customers).
--- Parameters: $window_end (date, inclusive), $due_grace_days, $max_last_pay_change.
+-- Parameters: $window_end (date, inclusive), $due_grace_days, $max_last_pay_change, $early_pay_days,
+-- $unexplained_current_days.
 -- Each stream takes the pay calendar that explains its payments best: fewest missed runs plus extras,
 -- then a steady amount over the explained payments, then fewest payments moved off their nominal day.
 -- A stream is
@@ -18,10 +19,12 @@
 -- A classified stream is current when its next payment was not due by the window's end (plus
 -- $due_grace_days for late postings): at the window's end a missed run cannot be told from leaving, and
 -- when one employer stops and another starts, only the later one is current. Other streams are current
--- when paid within the last 35 days (+ grace): an unexplained stream that is still paying.
+-- when paid within the last payroll.unexplained_current_days (+ grace): an unexplained stream that is
+-- still paying.
 -- The pay amount is the median of the last three explained payments (a pay rise takes over after two).
 -- Bonuses are reported, never annualised: payments the calendar leaves over, and the part of an
--- explained payment over 1.5 times the pay amount, above the pay amount (a bonus paid on the pay day).
+-- explained payment over payroll.same_day_bonus_multiple times the pay amount, above the pay amount (a
+-- bonus paid on the pay day).
 -- Label: net pay received (after tax and deductions), excluding bonuses, per year.
 
 with
@@ -161,13 +164,16 @@ final as (
         next_due_date,
         coalesce(
             case
-                -- not yet due; or a payment after the last explained one and at most ten days before
+                -- not yet due; or a payment after the last explained one and at most early_pay_days before
                 -- the next due day: that run paid early (December pay before the holidays)
                 when status in ('classified', 'unsettled')
                     then
                         next_due_date + $due_grace_days > $window_end::date
-                        or (last_any_pay_date > last_pay_date and last_any_pay_date >= next_due_date - 10)
-                else last_any_pay_date >= $window_end::date - (35 + $due_grace_days)
+                        or (
+                            last_any_pay_date > last_pay_date
+                            and last_any_pay_date >= next_due_date - $early_pay_days
+                        )
+                else last_any_pay_date >= $window_end::date - ($unexplained_current_days + $due_grace_days)
             end,
             false
         ) as is_current,
