@@ -13,8 +13,9 @@ import duckdb
 
 from ledgerband.tasks.core.errors import LedgerbandError
 from ledgerband.tasks.core.warehouse import sql_literal
+from ledgerband.tasks.publish.readers_contract import HISTORY
 
-TABLES = ("income_bands_history", "band_summary_history", "band_movers_history")
+TABLES = tuple(HISTORY)  # the readers' contract names the history tables once
 FORMULA_START = "^[=+\\-@\\t\\r]"
 
 

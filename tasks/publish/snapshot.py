@@ -27,7 +27,7 @@ from ledgerband.tasks.core.warehouse import open_warehouse, scalar, sql_literal,
 from ledgerband.tasks.modeling.bands import write_band_table
 from ledgerband.tasks.modeling.train import TrainSummary
 from ledgerband.tasks.ops.faults import checkpoint
-from ledgerband.tasks.publish.readers_contract import apply_comments
+from ledgerband.tasks.publish.readers_contract import HISTORY, apply_comments
 
 # Readers never see a suppressed cell's count.
 _SUPPRESS = "h.* replace (case when h.suppressed then null else h.customer_count end as customer_count)"
@@ -44,11 +44,7 @@ READER_TABLES = {
     "band_movers_history": f"select {_SUPPRESS} from published.band_movers_history as h {_PUBLISHED}",
 }
 # Tables delivered as Parquet by period (what a BI tool reads), from the same reader queries.
-PARQUET_TABLES = {
-    "income_bands": "income_bands_history",
-    "band_summary": "band_summary_history",
-    "band_movers": "band_movers_history",
-}
+PARQUET_TABLES = {current: history for history, current in HISTORY.items()}
 
 
 @dataclass(frozen=True)
@@ -120,7 +116,7 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, ctx: RunContext, model_vers
     return PublishResult(run_id, int(band_rows), published_at.isoformat(timespec="seconds"), is_current)
 
 
-HISTORY_TABLES = ("income_bands_history", "band_summary_history", "band_movers_history")
+HISTORY_TABLES = tuple(HISTORY)  # the readers' contract names them once
 # Columns that name the run (or its model) that wrote a row, or when: not part of a snapshot's content.
 RUN_NAMING_COLUMNS = frozenset({"run_id", "model_version", "published_at"})
 
