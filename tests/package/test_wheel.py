@@ -63,7 +63,7 @@ def test_the_wheel_carries_sql_suites_and_template_under_one_import_name(wheel):
         "ledgerband/warehouse/sql/published/income_bands.sql",
         "ledgerband/expectations/ledger_lines.json",
         "ledgerband/expectations/customer_features.json",
-        "ledgerband/tasks/templates/run_report.html.j2",
+        "ledgerband/tasks/report/templates/run_report.html.j2",
     ):
         assert needed in names, needed
     # Every query file the modules load by name (warehouse/sql/queries/<area>/<name>.sql).
