@@ -438,6 +438,7 @@ def serve() -> None:
 @app.command()
 def status(limit: Annotated[int, typer.Option(help="How many recent runs to show.")] = 10) -> None:
     """Recent runs, their stages and gate outcomes (read from the working warehouse)."""
+    from ledgerband.tasks.core.queries import run_query
     from ledgerband.tasks.core.warehouse import connect
 
     s = _settings()
@@ -451,23 +452,11 @@ def status(limit: Annotated[int, typer.Option(help="How many recent runs to show
         con = connect(s.warehouse_path, read_only=True)
     except LedgerbandError as exc:
         _fail(exc)
-    rows = con.execute(
-        "select run_id, period, started_at, status, error, stages, gate_figures from ops.runs "
-        "order by started_at desc limit ?",
-        [limit],
-    ).fetchall()
+    rows = run_query(con, "cli", "recent_runs", runs=limit).fetchall()
     has_alerts = con.execute(
         "select count(*) from information_schema.tables where table_schema = 'ops' and table_name = 'alerts'"
     ).fetchall()[0][0]
-    undelivered = (
-        con.execute(
-            "select sent_at, period, audience, channel, attempts, error, run_id from ops.alerts "
-            "where status = 'undelivered' order by sent_at desc limit ?",
-            [limit],
-        ).fetchall()
-        if has_alerts
-        else []
-    )
+    undelivered = run_query(con, "cli", "undelivered_alerts", alerts=limit).fetchall() if has_alerts else []
     con.close()
     if undelivered:
         out.print(f"[red]Alerts that did not reach their owners[/] (the local log has them: {s.alerts_log}):")

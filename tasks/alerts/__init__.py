@@ -51,6 +51,7 @@ def write_alert(log_path: Path, alert: dict) -> dict:
 
 def _run_facts(settings, run_id: str) -> dict:
     """What ops.runs and published.decisions say about the run (empty if the warehouse cannot tell)."""
+    from ledgerband.tasks.core.queries import run_query
     from ledgerband.tasks.core.warehouse import connect
 
     if not settings.warehouse_path.exists():
@@ -68,11 +69,7 @@ def _run_facts(settings, run_id: str) -> dict:
         period, status, error, stages = runs[0]
         stages = json.loads(stages) if stages else []
         ended = next((s["stage"] for s in stages if s["status"] in ("failed", "stopped")), None)
-        stop = con.execute(
-            "select gate, check_name, reason from published.decisions "
-            "where run_id = ? and decision = 'stop' order by decided_at limit 1",
-            [run_id],
-        ).fetchall()
+        stop = run_query(con, "alerts", "first_stop", run_id=run_id).fetchall()
         facts = {"period": period, "status": status, "error": error, "stage": ended}
         if stop:
             facts.update(gate=stop[0][0], check=stop[0][1], reason=stop[0][2])

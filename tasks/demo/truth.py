@@ -7,6 +7,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.modeling.bands import assign_band_index
 
 
@@ -17,11 +18,7 @@ def truth_check(con, answers_path: Path, run_id: str, edges: tuple[float, ...]) 
     for (self-employed, pensioners, paid elsewhere) are measured here, which only a synthetic bank allows.
     """
     answers = pd.read_csv(answers_path, dtype={"customer_id": str})
-    pred = con.execute(
-        "select customer_id, estimate, estimate_low, estimate_high, annual_salary, observed_pension "
-        "from ml.predictions where run_id = ?",
-        [run_id],
-    ).df()
+    pred = run_query(con, "demo", "run_estimates", run_id=run_id).df()
     m = pred.merge(answers, on="customer_id")
     estimated = m[m["annual_salary"].isna() & m["observed_pension"].isna()]
     labelled = m[m["annual_salary"].notna()]

@@ -18,6 +18,7 @@ import duckdb
 
 from ledgerband.tasks.core.context import RunContext
 from ledgerband.tasks.core.errors import GateStopped
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.core.warehouse import transaction
 
 QUALITY = "quality"
@@ -53,24 +54,20 @@ def record(con: duckdb.DuckDBPyConnection, ctx: RunContext, decision: Decision) 
         "delete from published.decisions where run_id = ? and gate = ? and check_name = ? and subject = ?",
         [ctx.run_id, decision.gate, decision.check, decision.subject],
     )
-    con.execute(
-        """
-        insert into published.decisions by name
-        select ? as run_id, ? as period, ? as gate, ? as check_name, ? as subject, ? as decision,
-            ? as reason, ?::json as figures, ?::json as thresholds, ? as decided_at
-        """,
-        [
-            ctx.run_id,
-            str(ctx.period),
-            decision.gate,
-            decision.check,
-            decision.subject,
-            decision.outcome,
-            decision.reason,
-            json.dumps(decision.figures, default=str),
-            json.dumps(decision.thresholds, default=str),
-            datetime.now(),
-        ],
+    run_query(
+        con,
+        "gates",
+        "record_decision",
+        run_id=ctx.run_id,
+        period=str(ctx.period),
+        gate=decision.gate,
+        check_name=decision.check,
+        subject=decision.subject,
+        decision=decision.outcome,
+        reason=decision.reason,
+        figures=json.dumps(decision.figures, default=str),
+        thresholds=json.dumps(decision.thresholds, default=str),
+        decided_at=datetime.now(),
     )
 
 
@@ -97,11 +94,7 @@ def enforce(
 
 def decisions_of_run(con: duckdb.DuckDBPyConnection, run_id: str) -> dict[str, dict]:
     """This run's decisions keyed `gate.check[.subject]`, for ops.runs and status listings."""
-    rows = con.execute(
-        "select gate, check_name, subject, decision, reason, figures from published.decisions "
-        "where run_id = ? order by decided_at",
-        [run_id],
-    ).fetchall()
+    rows = run_query(con, "gates", "run_decisions", run_id=run_id).fetchall()
     out = {}
     for gate, check, subject, decision, reason, figures in rows:
         key = f"{gate}.{check}" + ("" if subject in (None, RUN) else f".{subject}")

@@ -22,6 +22,7 @@ from prefect import task
 from prefect.cache_policies import NO_CACHE
 
 from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.core.warehouse import open_warehouse
 from ledgerband.tasks.gates import Decision, enforce
 from ledgerband.tasks.modeling.amounts import never_negative
@@ -170,11 +171,7 @@ def _words(rows: pd.DataFrame) -> str:
 
 def earlier_snapshot(con, period: str) -> tuple[str, str, str] | None:
     """(run_id, period, model_version) of the latest published snapshot of an earlier month."""
-    rows = con.execute(
-        "select run_id, period, model_version from published.snapshots where period < ? "
-        "order by period desc, published_at desc limit 1",
-        [period],
-    ).fetchall()
+    rows = run_query(con, "gates", "earlier_snapshot", period=period).fetchall()
     return rows[0] if rows else None
 
 

@@ -16,6 +16,7 @@ from prefect import task
 from prefect.cache_policies import NO_CACHE
 
 from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.core.settings import LabelSettings
 from ledgerband.tasks.core.warehouse import open_warehouse
 from ledgerband.tasks.gates import Decision, enforce, pct
@@ -56,30 +57,11 @@ class LabelStats:
 
 def label_stats(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> LabelStats:
     """Read the figures the gate judges from the feature layer (and the last passing decision)."""
-    customers, labelled, with_pay, irregular, median = con.execute(
-        """
-        select
-            count(*)::bigint,
-            count(*) filter (where label_status = 'labelled')::bigint,
-            count(*) filter (where label_status in ('labelled', 'irregular', 'ambiguous', 'unsettled'))::bigint,
-            count(*) filter (where label_status in ('irregular', 'ambiguous'))::bigint,
-            median(annual_salary) filter (where label_status = 'labelled')
-        from features.customer_label
-        """
-    ).fetchall()[0]
-    by_month = dict(
-        con.execute(
-            "select date_trunc('month', booking_date)::date, count(*)::bigint from intermediate.payroll_credits "
-            "where is_coded and income_kind = 'salary' group by all"
-        ).fetchall()
-    )
+    customers, labelled, with_pay, irregular, median = run_query(con, "gates", "label_figures").fetchall()[0]
+    by_month = dict(run_query(con, "gates", "coded_salary_credits_by_month").fetchall())
     this_month = int(by_month.get(ctx.period.start, 0))
     earlier = [int(by_month.get(p.start, 0)) for p in ctx.salary_window if p != ctx.period]
-    previous = con.execute(
-        "select figures from published.decisions where gate = ? and decision in ('pass', 'warn') and period < ? "
-        "order by period desc, decided_at desc limit 1",
-        [LABELS, str(ctx.period)],
-    ).fetchall()
+    previous = run_query(con, "gates", "last_label_decision", gate=LABELS, period=str(ctx.period)).fetchall()
     previous_median = json.loads(previous[0][0]).get("median_label") if previous else None
     return LabelStats(
         customers=int(customers),

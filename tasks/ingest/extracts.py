@@ -19,6 +19,7 @@ from prefect.cache_policies import NO_CACHE
 
 from ledgerband.tasks.core.context import RunContext
 from ledgerband.tasks.core.errors import ExtractError
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.core.task_policy import IO_RETRIES
 from ledgerband.tasks.core.warehouse import open_warehouse, transaction
 from ledgerband.tasks.gates import enforce
@@ -29,17 +30,6 @@ from ledgerband.tasks.ingest.manifest import Manifest, confined, manifests_to_lo
 from ledgerband.tasks.ingest.records import ArrowRowHandlerError, RecordStream, read_records, stream_records
 from ledgerband.tasks.ops.faults import checkpoint
 from ledgerband.tasks.quality.validate import extract_contract_decision
-
-# Sums of one load's readable amounts by direction, and how many records cannot be summed; read through
-# the one parse of the text fields (staging.ledger_lines_parsed).
-_TOTALS = """
-select
-    coalesce(sum(amount_value) filter (where direction = 'CRDT'), 0),
-    coalesce(sum(amount_value) filter (where direction = 'DBIT'), 0),
-    count(*) filter (where amount_value is null or direction is null or direction not in ('CRDT', 'DBIT'))
-from staging.ledger_lines_parsed
-where load_id = ?
-"""
 
 
 def _insert_records(
@@ -177,7 +167,7 @@ def load_extract(con: duckdb.DuckDBPyConnection, ctx: RunContext, manifest: Mani
                 "insert into quarantine.ledger_lines values (?, ?, ?, [?], ?, ?, ?)",
                 [load_id, str(path), line, rule, f"line {line}: {rule} ({reason})", text, now],
             )
-        credit, debit, unreadable = con.execute(_TOTALS, [load_id]).fetchall()[0]
+        credit, debit, unreadable = run_query(con, "ingest", "load_totals", load_id=load_id).fetchall()[0]
         counts = FileCounts(
             rows_in_file=records.rows + len(records.malformed),
             credit_total=Decimal(credit),

@@ -14,6 +14,7 @@ from decimal import Decimal
 import duckdb
 
 from ledgerband.tasks.core.period import Period
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.core.warehouse import scalar
 
 LOADED = "loaded"  # in raw.*, not yet through the quality gate
@@ -59,12 +60,16 @@ def accepted_load(con: duckdb.DuckDBPyConnection, sha256: str, dataset: str) -> 
 
 def accepted_with_same_name(con: duckdb.DuckDBPyConnection, period: Period, file_name: str) -> str | None:
     """An accepted extract of `period` with this file name (whatever its content)."""
-    return scalar(
+    rows = run_query(
         con,
-        "select load_id from ops.loads where dataset = ? and status = ? and period = ? "
-        "and parse_filename(source_file) = ? limit 1",
-        [LEDGER, ACCEPTED, str(period), file_name],
-    )
+        "ingest",
+        "accepted_with_same_name",
+        dataset=LEDGER,
+        status=ACCEPTED,
+        period=str(period),
+        file_name=file_name,
+    ).fetchall()
+    return rows[0][0] if rows else None
 
 
 def seen_again(con: duckdb.DuckDBPyConnection, load_id: str) -> None:
@@ -108,32 +113,27 @@ class NewLoad:
 def register(con: duckdb.DuckDBPyConnection, load: NewLoad, status: str, reason: str | None = None) -> None:
     """Write the load's row; a load that is not `loaded` is decided at once."""
     now = datetime.now()
-    con.execute(
-        """
-        insert into ops.loads (load_id, dataset, period, source_file, sha256, manifest_row_count, rows_in_file,
-            rows_loaded, rows_quarantined, credit_total, debit_total, status, reason, run_id, loaded_at,
-            decided_at, last_seen_at)
-        values (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)
-        """,
-        [
-            load.load_id,
-            load.dataset,
-            str(load.period) if load.period else None,
-            load.source_file,
-            load.sha256,
-            load.manifest_row_count,
-            load.rows_in_file,
-            load.rows_loaded,
-            load.rows_quarantined,
-            load.credit_total,
-            load.debit_total,
-            status,
-            reason,
-            load.run_id,
-            now,
-            None if status == LOADED else now,
-            now,
-        ],
+    run_query(
+        con,
+        "ingest",
+        "register_load",
+        load_id=load.load_id,
+        dataset=load.dataset,
+        period=str(load.period) if load.period else None,
+        source_file=load.source_file,
+        sha256=load.sha256,
+        manifest_row_count=load.manifest_row_count,
+        rows_in_file=load.rows_in_file,
+        rows_loaded=load.rows_loaded,
+        rows_quarantined=load.rows_quarantined,
+        credit_total=load.credit_total,
+        debit_total=load.debit_total,
+        status=status,
+        reason=reason,
+        run_id=load.run_id,
+        loaded_at=now,
+        decided_at=None if status == LOADED else now,
+        last_seen_at=now,
     )
 
 
@@ -183,14 +183,5 @@ def accepted_ledger_loads(con: duckdb.DuckDBPyConnection) -> dict[str, tuple[dat
     What a table derived from accepted loads (staging.transactions, ops.accepted_txn_ids) compares with
     the loads it holds, to know whether it is still what its definition says.
     """
-    rows = con.execute(
-        """
-        select loads.load_id, loads.loaded_at, count(q.load_id)::bigint
-        from ops.loads as loads
-        left join quarantine.ledger_lines as q on q.load_id = loads.load_id
-        where loads.dataset = ? and loads.status = ?
-        group by loads.load_id, loads.loaded_at
-        """,
-        [LEDGER, ACCEPTED],
-    ).fetchall()
+    rows = run_query(con, "ingest", "accepted_ledger_loads", dataset=LEDGER, status=ACCEPTED).fetchall()
     return {load_id: (loaded_at, int(quarantined)) for load_id, loaded_at, quarantined in rows}

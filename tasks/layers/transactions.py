@@ -17,6 +17,7 @@ from __future__ import annotations
 import duckdb
 
 from ledgerband.tasks.core.errors import LedgerbandError
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.core.warehouse import SqlModel, columns_of, sql_model, transaction
 from ledgerband.tasks.ingest.loads import accepted_ledger_loads
 
@@ -24,7 +25,10 @@ TABLE = "staging.transactions"
 
 # The file reads `records` from this query; an append reads, in its place, only the new loads' records
 # whose txn_id the table does not hold yet (the earlier booking is the first). The rest of the file
-# (a txn_id repeated among them keeps its first booking) is the same text both ways.
+# (a txn_id repeated among them keeps its first booking) is the same text both ways. These two are the
+# one piece of SQL kept here: fragments of the file, not statements. A second file for the append would
+# restate the first-booking logic; a relation the append points at new loads would make the file's
+# meaning depend on session state, and the file is the reference the kept table is tested against.
 _RECORDS = "records as not materialized (\n    select * from staging.ledger_transactions\n)"
 _NEW_RECORDS = """records as not materialized (
     select new.*
@@ -32,19 +36,10 @@ _NEW_RECORDS = """records as not materialized (
     anti join temp.held_again on new.txn_id is not distinct from held_again.txn_id
     where new.load_id in (select unnest($new_loads))
 )"""
-# The new loads' txn_ids the table holds already: few or none (validation quarantines a repeated
-# booking), found in one pass so the held table is hashed once, not once per read of `records`.
-_HELD_AGAIN = """
-create or replace temp table held_again as
-select distinct new.txn_id
-from staging.ledger_transactions as new
-semi join staging.transactions as held on new.txn_id is not distinct from held.txn_id
-where new.load_id in (select unnest($new_loads))
-"""
 
 
 def append_query(model: SqlModel) -> str:
-    """The file's query reading only the new loads' records (after `_HELD_AGAIN` has run)."""
+    """The file's query reading only the new loads' records (after `transactions_held_again` has run)."""
     if model.query.count(_RECORDS) != 1:
         raise LedgerbandError(
             f"sql/staging/transactions.sql must define `records` once as {_RECORDS!r}: the monthly append "
@@ -54,7 +49,7 @@ def append_query(model: SqlModel) -> str:
 
 
 def _append(con: duckdb.DuckDBPyConnection, model: SqlModel, new: list[str]) -> None:
-    con.execute(_HELD_AGAIN, {"new_loads": new}).fetchall()
+    run_query(con, "layers", "transactions_held_again", new_loads=new).fetchall()
     con.execute(f"insert into {TABLE}\n{append_query(model)}", {"new_loads": new}).fetchall()
     con.execute("drop table temp.held_again").fetchall()
 
@@ -87,10 +82,7 @@ def _why_rebuild(
 def refresh_transactions(con: duckdb.DuckDBPyConnection, model: SqlModel | None = None) -> str:
     """Bring staging.transactions up to date: 'appended N', 'unchanged' or 'rebuilt: <why>'."""
     model = model or sql_model("staging", "transactions")
-    con.execute(
-        "create table if not exists staging.transaction_loads "
-        "(load_id varchar primary key, loaded_at timestamp not null, quarantined bigint not null)"
-    )
+    run_query(con, "layers", "create_transaction_loads")
     accepted = accepted_ledger_loads(con)
     held = {
         r[0]: (r[1], r[2])

@@ -24,6 +24,7 @@ from sklearn.pipeline import Pipeline
 from ledgerband.tasks.core.cluster import on_cluster
 from ledgerband.tasks.core.context import RunContext
 from ledgerband.tasks.core.errors import ModelFileRefused
+from ledgerband.tasks.core.queries import query_relation
 from ledgerband.tasks.core.settings import Settings
 from ledgerband.tasks.core.warehouse import open_warehouse
 from ledgerband.tasks.ingest.extract_contract import sha256_file
@@ -57,15 +58,7 @@ from ledgerband.tasks.modeling.intervals import (
 
 def model_frame(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
     """Every customer's features with the observed annual salary (null when not paid here)."""
-    return con.sql(
-        """
-        select c.*, s.annual_salary, l.annual_pension
-        from features.customer as c
-        left join features.customer_salary as s using (customer_id)
-        left join features.customer_label as l using (customer_id)
-        order by c.customer_id
-        """
-    ).df()
+    return query_relation(con, "modeling", "model_frame").df()
 
 
 @dataclass

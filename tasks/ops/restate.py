@@ -19,6 +19,7 @@ import duckdb
 
 from ledgerband.tasks.core.errors import LedgerbandError
 from ledgerband.tasks.core.period import Period
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.core.warehouse import apply_schema, transaction
 from ledgerband.tasks.ingest import loads
 from ledgerband.tasks.ingest.extract_contract import sha256_file
@@ -79,10 +80,13 @@ def finish(
                 [loads.LEDGER, str(period), loads.ACCEPTED],
             ).fetchall()[0][0]
             if still == 0:
-                con.execute(
-                    "update ops.loads set status = ?, reason = ? where load_id in "
-                    "(select old_load_id from ops.restatements where restatement_id = ?)",
-                    [loads.ACCEPTED, f"kept: the restatement failed ({error[:200]})", restatement],
+                run_query(
+                    con,
+                    "ops",
+                    "restore_restated_loads",
+                    status=loads.ACCEPTED,
+                    reason=f"kept: the restatement failed ({error[:200]})",
+                    restatement_id=restatement,
                 )
         con.execute(
             "update ops.restatements set status = ?, run_id = ?, error = ? where restatement_id = ?",

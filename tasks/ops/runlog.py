@@ -19,6 +19,7 @@ from typing import Any, TypeVar
 
 from ledgerband.tasks.core.context import RunContext
 from ledgerband.tasks.core.errors import GateStopped
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.core.warehouse import apply_schema, open_warehouse, resource_error
 from ledgerband.tasks.gates import decisions_of_run
 
@@ -153,17 +154,15 @@ def mark_crashed_runs(con, current_run_id: str) -> int:
     belongs to a process that ended without finishing (SIGKILL, power loss, OOM killer).
     """
     now = datetime.now()
-    rows = con.execute(
-        "update ops.runs set status = ?, finished_at = ?, "
-        "error = coalesce(error || '; ', '') || ? "
-        "where status = ? and run_id <> ? returning run_id",
-        [
-            CRASHED,
-            now,
-            f"its process ended without finishing the run (killed or crashed); found by run {current_run_id} "
-            f"at {now:%Y-%m-%d %H:%M:%S}",
-            RUNNING,
-            current_run_id,
-        ],
+    rows = run_query(
+        con,
+        "ops",
+        "mark_crashed_runs",
+        crashed=CRASHED,
+        finished_at=now,
+        note=f"its process ended without finishing the run (killed or crashed); found by run {current_run_id} "
+        f"at {now:%Y-%m-%d %H:%M:%S}",
+        running=RUNNING,
+        current_run_id=current_run_id,
     ).fetchall()
     return len(rows)

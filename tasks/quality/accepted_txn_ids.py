@@ -4,8 +4,9 @@ The rule `txn_id_not_loaded_before` asks, for every record of a new extract, whe
 an earlier accepted file (and was not quarantined there). Asked of raw.ledger_lines, that joins every
 month ever loaded with ops.loads and the quarantine; this key table holds just the answer's two columns.
 
-It is derived data and is treated so. `ops.accepted_txn_id_loads` records which loads it holds and each
-one's quarantined count when its keys were written. `sync` compares that with ops.loads before every
+It is derived data and is treated so: its definition is the statement that writes it
+(`warehouse/sql/queries/quality/write_accepted_txn_ids.sql`). `ops.accepted_txn_id_loads` records which
+loads it holds and each one's quarantined count when its keys were written. `sync` compares that with ops.loads before every
 check: keys of a load no longer accepted (restated) or whose quarantine changed are deleted, keys of an
 accepted load not held (newly accepted, changed, or a warehouse from before this table) are written,
 all in one transaction. So the table is whatever ops.loads says it must be, and a run that stopped
@@ -17,16 +18,9 @@ from __future__ import annotations
 
 import duckdb
 
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.core.warehouse import transaction
 from ledgerband.tasks.ingest.loads import accepted_ledger_loads
-
-# The definition: the txn_ids of the records of these loads that were not quarantined.
-DEFINITION = """
-select r.txn_id, r.load_id
-from raw.ledger_lines as r
-anti join quarantine.ledger_lines as q on q.load_id = r.load_id and q.source_line = r.source_line
-where r.load_id in (select unnest($loads)) and r.txn_id is not null
-"""
 
 
 def sync(con: duckdb.DuckDBPyConnection) -> tuple[int, int]:
@@ -47,7 +41,7 @@ def sync(con: duckdb.DuckDBPyConnection) -> tuple[int, int]:
                 {"loads": stale},
             )
         if missing:
-            con.execute(f"insert into ops.accepted_txn_ids {DEFINITION}", {"loads": missing})
+            run_query(con, "quality", "write_accepted_txn_ids", loads=missing)
             con.executemany(
                 "insert into ops.accepted_txn_id_loads values (?, ?)", [[m, accepted[m]] for m in missing]
             )

@@ -197,8 +197,10 @@ def evaluate(
     broken_any = " or ".join(f"u{i}" for i in range(n)) or "false"
     try:
         con.execute(
+            # The query is a packaged file's text (header comments included): it starts and ends on
+            # lines of its own, so its last line cannot comment out the closing parenthesis.
             f"create or replace temp table rule_checks as select source_line{carried}, {flags} "
-            f"from ({query}) as checked",
+            f"from (\n{query}\n) as checked",
             {**query_params, **binds},
         ).fetchall()
         for i in keyed:

@@ -27,13 +27,13 @@ import pandas as pd
 from prefect import task
 from prefect.cache_policies import NO_CACHE
 
+from ledgerband.tasks.core import queries
 from ledgerband.tasks.core.context import RunContext
 from ledgerband.tasks.core.errors import LedgerbandError, ValidationEngineError
 from ledgerband.tasks.core.settings import Settings
 from ledgerband.tasks.core.warehouse import open_warehouse, transaction
 from ledgerband.tasks.gates import QUALITY, Decision, enforce
 from ledgerband.tasks.ingest import loads
-from ledgerband.tasks.ingest.extract_contract import LEDGER_COLUMNS
 from ledgerband.tasks.ingest.records import INGEST_RULES
 from ledgerband.tasks.quality import accepted_txn_ids, codelists, pushdown
 
@@ -221,130 +221,6 @@ class ValidationSummary:
         return self.rows_quarantined / self.rows_in_file if self.rows_in_file else 0.0
 
 
-# The load's records with helper columns the suite's rules read (documented in the suite's meta):
-# - the parsed values, from the one parse of the text fields (staging.ledger_lines_parsed);
-# - txn_id_loaded_before: the txn_id came in an earlier file that was accepted, or was validated earlier
-#   in the same run, and was not quarantined there (accepted files through ops.accepted_txn_ids, see
-#   tasks/quality/accepted_txn_ids.py);
-# - customer_in_reference: the customer_id is in the current customer reference file;
-# - balance_chain_broken: the account's balances do not chain in this extract. Each posting's balance
-#   before it (balance_after minus the signed amount) must be a balance the account reached: after
-#   another of its postings in this extract, or in the previous month's extract. A chain has one start
-#   (its opening balance, unknown) when the account has no postings the month before, none otherwise;
-#   more starts mean a posting is missing (or was altered). The test is set-based (one hash anti-join
-#   and one aggregate) and needs no posting order within a day, which extracts do not promise.
-_PARSED_QUERY = """
-with this_load as (
-    select loaded_at, run_id, period from ops.loads where load_id = $load_id
-),
-earlier_loads as (
-    select l.load_id, l.period, l.status
-    from ops.loads as l, this_load as t
-    where l.dataset = 'ledger' and l.load_id <> $load_id
-        and (
-            l.status = 'accepted'
-            -- a file validated earlier in this same run; a 'loaded' file left by a run that stopped
-            -- or crashed is not evidence of anything
-            or (l.status = 'loaded' and l.run_id = t.run_id and l.loaded_at < t.loaded_at)
-        )
-),
-this_txn_ids as (
-    select txn_id from raw.ledger_lines where load_id = $load_id
-),
-previous as (
-    -- accepted loads: their keys (ops.accepted_txn_ids, brought in line with ops.loads just before)
-    select k.txn_id
-    from ops.accepted_txn_ids as k
-    where k.load_id <> $load_id and k.txn_id in (select txn_id from this_txn_ids)
-    union
-    -- files validated earlier in this same run, not yet accepted
-    select r.txn_id
-    from raw.ledger_lines as r
-    inner join earlier_loads as l on l.load_id = r.load_id
-    anti join quarantine.ledger_lines as q on q.load_id = r.load_id and q.source_line = r.source_line
-    where l.status = 'loaded' and r.txn_id in (select txn_id from this_txn_ids)
-),
-reference as (
-    select distinct customer_id from staging.customer_reference
-),
-postings as (
-    select
-        account_id,
-        source_line,
-        balance_after_value,
-        -- only a posting whose amount reads back exactly as written (positive, two places) and that
-        -- was not loaded before can start a chain: a garbled amount or a booking sent again is its own
-        -- rule's finding, not a missing posting
-        case when amount_value > 0 and amount_value::varchar = amount and previous.txn_id is null then
-            balance_after_value - case direction when 'CRDT' then amount_value when 'DBIT' then -amount_value end
-        end as balance_before
-    from staging.ledger_lines_parsed as lines
-    left join previous on previous.txn_id = lines.txn_id
-    where lines.load_id = $load_id and lines.account_id is not null
-),
-month_before as (
-    select max(period) as period from earlier_loads where period < (select period from this_load)
-),
-reached as (
-    select account_id, balance_after_value as balance, source_line from postings
-    union all
-    select p.account_id, p.balance_after_value, null
-    from staging.ledger_lines_parsed as p
-    inner join earlier_loads as l on l.load_id = p.load_id
-    where l.period = (select period from month_before)
-        and p.account_id in (select account_id from postings)
-),
-chain_starts as (
-    select
-        postings.account_id,
-        count(*) filter (where postings.balance_before is not null) as starts
-    from postings
-    anti join reached
-        on reached.account_id = postings.account_id
-        and reached.balance = postings.balance_before
-        and reached.source_line is distinct from postings.source_line
-    group by postings.account_id
-),
-continued as (
-    select distinct account_id from reached where source_line is null
-),
-broken_chains as (
-    select chain_starts.account_id
-    from chain_starts
-    left join continued on continued.account_id = chain_starts.account_id
-    where chain_starts.starts > case when continued.account_id is null then 1 else 0 end
-)
-select
-    cur.source_line,
-    {columns},
-    cur.amount_value::double as amount_value,
-    cur.booking_date_value,
-    previous.txn_id is not null as txn_id_loaded_before,
-    cur.customer_id is null or reference.customer_id is not null as customer_in_reference,
-    broken_chains.account_id is not null as balance_chain_broken,
-    cur.bank_txn_code is null
-        or cur.btc_domain in (select code from code_lists where list = 'btc_domains') as btc_domain_listed,
-    cur.bank_txn_code is null
-        or cur.btc_domain || '/' || cur.btc_family
-        in (select code from code_lists where list = 'btc_domain_families') as btc_domain_family_listed,
-    cur.bank_txn_code is null
-        or cur.btc_subfamily in (select code from code_lists where list = 'btc_subfamilies') as btc_subfamily_listed,
-    cur.purpose_code is null
-        or cur.purpose_code in (select code from code_lists where list = 'purpose_codes') as purpose_code_listed,
-    cur.merchant_category is null
-        or cur.merchant_category in (select code from code_lists where list = 'merchant_categories')
-        as merchant_category_listed,
-    {control_field} as field_with_control_character,
-    {long_field} as field_too_long
-from staging.ledger_lines_parsed as cur
-left join previous on previous.txn_id = cur.txn_id
-left join reference on reference.customer_id = cur.customer_id
-left join broken_chains on broken_chains.account_id = cur.account_id
-where cur.load_id = $load_id
-order by cur.source_line
-"""
-
-
 RESULTS_KEPT = 20
 
 
@@ -381,12 +257,6 @@ def _merge_result(kept: dict[str, dict], r: Any) -> None:
         )
     checked = totals["element_count"] - totals["missing_count"]
     totals["unexpected_percent"] = 100.0 * totals["unexpected_count"] / checked if checked else 0.0
-
-
-def _first_field(test: str) -> str:
-    """SQL naming the first received field for which `test` (with {c} for the column) holds, else null."""
-    whens = " ".join(f"when {test.format(c=c)} then '{c}'" for c in LEDGER_COLUMNS)
-    return f"case {whens} end"
 
 
 def _evaluate_pushed(
@@ -484,12 +354,14 @@ def validate_load(
                 helper = text.at[line, column] if column in _NAMES_A_FIELD else None
                 failures[line][rule] = _broken_field(column, helper, text, line, item.get(column))
 
-    query = _PARSED_QUERY.format(
-        columns=", ".join(f"cur.{c}" for c in LEDGER_COLUMNS),
-        control_field=_first_field("regexp_matches(cur.{c}, '[\\x00-\\x1f\\x7f]')"),
-        long_field=_first_field("length(cur.{c}) > $max_field_length"),
+    # The load's records with the helper columns the suite's rules read (txn_id_loaded_before,
+    # customer_in_reference, balance_chain_broken, code-list and text-hygiene helpers), explained in the file.
+    query = queries.query_text("quality", "ledger_checks")
+    query_params = queries.bind(
+        "quality",
+        "ledger_checks",
+        {"load_id": load_id, "max_field_length": settings.quality.max_field_length},
     )
-    query_params = {"load_id": load_id, "max_field_length": settings.quality.max_field_length}
     relation = con.sql(query, params=query_params)
     pushed: list[dict] = []
     if settings.quality.engine == "duckdb":
@@ -542,17 +414,12 @@ def validate_load(
     with transaction(con):
         # Rerunning validation on the same load replaces its rule findings (records quarantined while
         # the file was read stay).
-        con.execute(
-            "delete from quarantine.ledger_lines where load_id = ? "
-            "and not (len(failed_rules) = 1 and list_contains(?, failed_rules[1]))",
-            [load_id, list(INGEST_RULES)],
+        queries.run_query(
+            con, "quality", "clear_rule_findings", load_id=load_id, ingest_rules=list(INGEST_RULES)
         )
         if len(quarantine):
             con.register("quarantine_rows", quarantine)
-            con.execute(
-                "insert into quarantine.ledger_lines select load_id, source_file, source_line, "
-                "failed_rules::varchar[], reason, raw_record::varchar, quarantined_at from quarantine_rows"
-            )
+            queries.run_query(con, "quality", "write_rule_findings")
             con.unregister("quarantine_rows")
         total_quarantined = con.execute(
             "select count(*)::bigint from quarantine.ledger_lines where load_id = ?", [load_id]
@@ -563,24 +430,16 @@ def validate_load(
     for rules in failures.values():
         for rule in rules:
             counts[rule] += 1
-    for rule, n in con.execute(
-        "select failed_rules[1], count(*) from quarantine.ledger_lines where load_id = ? "
-        "and len(failed_rules) = 1 and list_contains(?, failed_rules[1]) group by 1",
-        [load_id, list(INGEST_RULES)],
-    ).fetchall():
+    ingest_counts = queries.run_query(
+        con, "quality", "ingest_rule_counts", load_id=load_id, ingest_rules=list(INGEST_RULES)
+    )
+    for rule, n in ingest_counts.fetchall():
         counts[rule] += int(n)
-    # Where and which rules, never the values: these lines reach gate decisions, alerts and readers.
-    examples = con.execute(
-        "select 'line ' || source_line || ': ' || array_to_string(failed_rules, ', ') "
-        "from quarantine.ledger_lines where load_id = ? order by source_line limit ?",
-        [load_id, _EXAMPLES_KEPT],
+    examples = queries.run_query(
+        con, "quality", "quarantine_examples", load_id=load_id, examples=_EXAMPLES_KEPT
     ).fetchall()
-    accounts, broken_accounts = con.execute(
-        "select count(distinct r.account_id), count(distinct r.account_id) filter (where q.source_line is not null) "
-        "from raw.ledger_lines as r left join quarantine.ledger_lines as q "
-        "on q.load_id = r.load_id and q.source_line = r.source_line and list_contains(q.failed_rules, ?) "
-        "where r.load_id = ?",
-        [CHAIN_RULE, load_id],
+    accounts, broken_accounts = queries.run_query(
+        con, "quality", "chain_account_counts", load_id=load_id, chain_rule=CHAIN_RULE
     ).fetchall()[0]
     return ValidationSummary(
         results=[kept[rule] for rule in parts.rule_names if rule in kept],

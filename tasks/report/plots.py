@@ -15,6 +15,8 @@ from dataclasses import dataclass
 import duckdb
 import numpy as np
 
+from ledgerband.tasks.core.queries import run_query
+
 # Okabe & Ito (2008), "Color Universal Design": black, orange, sky blue, bluish green, yellow, blue,
 # vermillion, reddish purple.
 PALETTE = ["#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7"]
@@ -176,12 +178,7 @@ def _confusion(y, p, edges) -> Figure:
 
 
 def _per_band_by_source(con, run_id) -> Figure:
-    rows = con.execute(
-        "select b.income_band, h.band_source, count(h.customer_id) from ref.income_bands as b "
-        "left join published.income_bands_history as h on h.income_band = b.income_band and h.run_id = ? "
-        "group by all order by all",
-        [run_id],
-    ).fetchall()
+    rows = run_query(con, "report", "band_source_customers", run_id=run_id).fetchall()
     bands = sorted({r[0] for r in rows})
     sources = [
         s for s in ("observed_salary", "observed_pension", "model_estimate") if any(r[1] == s for r in rows)
@@ -217,11 +214,7 @@ def _per_band_by_source(con, run_id) -> Figure:
 
 
 def _band_shares_by_region(con, run_id) -> Figure:
-    rows = con.execute(
-        "select home_region, income_band, sum(customer_count) from published.band_summary_history "
-        "where run_id = ? group by all order by all",
-        [run_id],
-    ).fetchall()
+    rows = run_query(con, "report", "region_band_customers", run_id=run_id).fetchall()
     if not rows:
         return Figure("band_by_region", "Band shares by region", "", None, "nothing was published")
     regions = sorted({r[0] for r in rows})
@@ -284,16 +277,8 @@ def _learning_curve(con, run_id, currency) -> Figure:
 
 
 def _coverage(con, run_id) -> Figure:
-    rows = con.execute(
-        "select attribute, group_name, coverage, customers from ml.group_errors where run_id = ? "
-        "and coverage is not null order by attribute, group_name",
-        [run_id],
-    ).fetchall()
-    level = con.execute(
-        "select (figures->>'interval_level')::double from published.decisions where run_id = ? "
-        "and gate = 'accuracy' and check_name = 'accuracy'",
-        [run_id],
-    ).fetchall()
+    rows = run_query(con, "report", "group_coverage", run_id=run_id).fetchall()
+    level = run_query(con, "report", "interval_level", run_id=run_id).fetchall()
     if not rows:
         return Figure("coverage", "Interval coverage by band and group", "", None, "no intervals in this run")
     labels = [f"{a.replace('_', ' ')}: {g} ({c})" for a, g, _, c in rows]

@@ -6,6 +6,7 @@ import json
 from pathlib import Path
 
 from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.core.warehouse import open_warehouse
 
 
@@ -14,11 +15,7 @@ def run_artifacts(ctx: RunContext, status: str, report: Path | None) -> None:
     from prefect.artifacts import create_markdown_artifact, create_table_artifact
 
     with open_warehouse(ctx.warehouse, ctx.settings.scale) as con:
-        rows = con.execute(
-            "select gate, check_name, subject, decision, reason, figures from published.decisions "
-            "where run_id = ? order by decided_at",
-            [ctx.run_id],
-        ).fetchall()
+        rows = run_query(con, "gates", "run_decisions", run_id=ctx.run_id).fetchall()
     decisions = [
         {"gate": g, "check": c, "subject": s, "decision": d, "reason": r[:500]} for g, c, s, d, r, _ in rows
     ]

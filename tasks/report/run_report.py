@@ -12,6 +12,7 @@ from prefect import task
 from prefect.cache_policies import NO_CACHE
 
 from ledgerband.tasks.core.context import RunContext
+from ledgerband.tasks.core.queries import run_query
 from ledgerband.tasks.core.task_policy import IO_RETRIES
 from ledgerband.tasks.core.warehouse import open_warehouse
 
@@ -30,8 +31,8 @@ CAUTIONS = (
 )
 
 
-def _rows(con: duckdb.DuckDBPyConnection, query: str, params: list) -> list[dict]:
-    cur = con.execute(query, params)
+def _rows(cur: duckdb.DuckDBPyConnection) -> list[dict]:
+    """An executed statement's rows as dicts keyed by column name."""
     names = [d[0] for d in cur.description]
     return [dict(zip(names, r, strict=True)) for r in cur.fetchall()]
 
@@ -40,79 +41,36 @@ def gather(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> dict:
     """Everything the report shows, read back from the warehouse (the report computes nothing new)."""
     settings, run_id, period = ctx.settings, ctx.run_id, str(ctx.period)
     window = ctx.load_window.labels
-    run = _rows(con, "select * from ops.runs where run_id = ?", [run_id])
-    decisions = _rows(con, "select * from published.decisions where run_id = ? order by decided_at", [run_id])
+    run = _rows(con.execute("select * from ops.runs where run_id = ?", [run_id]))
+    decisions = _rows(
+        con.execute("select * from published.decisions where run_id = ? order by decided_at", [run_id])
+    )
     for d in decisions:
         d["figures"] = json.loads(d["figures"])
         d["thresholds"] = json.loads(d["thresholds"])
-    loads = _rows(
-        con,
-        "select source_file, period, rows_in_file, rows_loaded, rows_quarantined, status, reason, "
-        "case when rows_in_file > 0 then rows_quarantined / rows_in_file end as quarantined_share "
-        "from ops.loads where dataset = 'ledger' and period in (select unnest(?::varchar[])) "
-        "order by period, loaded_at",
-        [window],
-    )
-    models = _rows(con, "select * from ml.model_runs where run_id = ? order by mae_mean", [run_id])
+    loads = _rows(run_query(con, "report", "window_loads", window=window))
+    models = _rows(con.execute("select * from ml.model_runs where run_id = ? order by mae_mean", [run_id]))
     groups = _rows(
-        con,
-        "select * from ml.group_errors where run_id = ? order by attribute, group_name",
-        [run_id],
+        con.execute("select * from ml.group_errors where run_id = ? order by attribute, group_name", [run_id])
     )
-    shift = _rows(con, "select * from ml.population_shift where run_id = ? order by feature", [run_id])
-    curve = _rows(con, "select * from ml.learning_curve where run_id = ? order by n_train", [run_id])
-    drift = _rows(con, "select * from ml.drift where run_id = ? order by psi desc", [run_id])
+    shift = _rows(
+        con.execute("select * from ml.population_shift where run_id = ? order by feature", [run_id])
+    )
+    curve = _rows(con.execute("select * from ml.learning_curve where run_id = ? order by n_train", [run_id]))
+    drift = _rows(con.execute("select * from ml.drift where run_id = ? order by psi desc", [run_id]))
     drift_decision = next((d for d in decisions if d["gate"] == "drift"), None)
     accuracy = next((d for d in decisions if d["gate"] == "accuracy" and d["check_name"] == "accuracy"), None)
-    bands = _rows(
-        con,
-        """
-        select b.band_index, b.income_band, b.band_label,
-               count(h.customer_id) filter (where h.band_source like 'observed%') as observed,
-               count(h.customer_id) filter (where h.band_source = 'model_estimate') as estimated,
-               count(h.customer_id) as customers
-        from ref.income_bands as b
-        left join published.income_bands_history as h on h.income_band = b.income_band and h.run_id = ?
-        group by all order by b.band_index
-        """,
-        [run_id],
-    )
-    by_region = _rows(
-        con,
-        "select home_region, income_band, sum(customer_count)::bigint as customers "
-        "from published.band_summary_history where run_id = ? group by all order by home_region, income_band",
-        [run_id],
-    )
+    bands = _rows(run_query(con, "report", "band_customers", run_id=run_id))
+    by_region = _rows(run_query(con, "report", "region_band_customers", run_id=run_id))
     regions: dict[str, dict[str, int]] = {}
     for r in by_region:
         regions.setdefault(r["home_region"], {})[r["income_band"]] = r["customers"]
     stopped_at = next((d["gate"] for d in decisions if d["decision"] == "stop"), None)
     published = stopped_at is None and accuracy is not None and accuracy["decision"] == "pass"
-    quarantine = _rows(
-        con,
-        """
-        select rule, count(*)::bigint as records,
-            -- where, never what: the record's values stay in quarantine.ledger_lines
-            arg_min(parse_filename(q.source_file) || ' line ' || q.source_line, q.source_line) as example
-        from (
-            select unnest(failed_rules) as rule, source_file, source_line, load_id
-            from quarantine.ledger_lines
-        ) as q
-        inner join ops.loads as l on l.load_id = q.load_id
-        where l.period in (select unnest(?::varchar[]))
-        group by rule
-        order by records desc, rule
-        """,
-        [window],
-    )
+    quarantine = _rows(run_query(con, "report", "rule_quarantine", window=window))
     labels = []
     if any(d["gate"] == "labels" for d in decisions):  # the run built this month's labels
-        labels = _rows(
-            con,
-            "select label_status, coalesce(label_confidence, '–') as confidence, count(*)::bigint as customers, "
-            "sum(bonus_amount)::double as bonus_amount from features.customer_label group by all order by all",
-            [],
-        )
+        labels = _rows(run_query(con, "report", "label_counts"))
     from ledgerband.tasks.report.plots import draw_all
 
     plots = draw_all(con, run_id, settings.bands.currency, settings.bands.edges)
@@ -205,16 +163,7 @@ def render_index(con: duckdb.DuckDBPyConnection, reports_dir: Path) -> str:
     """Every run, newest first: period, status, how it ended, champion, and a link to its report."""
     from html import escape
 
-    rows = con.execute(
-        """
-        select r.run_id, r.period, r.started_at, r.status, r.error,
-               (select string_agg(d.gate || ' ' || d.decision, ', ' order by d.decided_at)
-                from published.decisions as d where d.run_id = r.run_id) as gates,
-               (select candidate from ml.model_runs as m where m.run_id = r.run_id and m.is_champion) as champion
-        from ops.runs as r
-        order by r.started_at desc
-        """
-    ).fetchall()
+    rows = run_query(con, "report", "run_index").fetchall()
     body = []
     for run_id, period, started, status, error, gates, champion in rows:
         link = f"{period}/{run_id}.html"

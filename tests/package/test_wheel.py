@@ -66,6 +66,11 @@ def test_the_wheel_carries_sql_suites_and_template_under_one_import_name(wheel):
         "ledgerband/tasks/report/templates/run_report.html.j2",
     ):
         assert needed in names, needed
+    # Every query file the modules load by name (warehouse/sql/queries/<area>/<name>.sql).
+    queries = sorted((REPO / "warehouse" / "sql" / "queries").glob("*/*.sql"))
+    assert queries
+    missing = [p for p in queries if f"ledgerband/{p.relative_to(REPO).as_posix()}" not in names]
+    assert not missing, f"query files left out of the wheel: {missing}"
 
 
 def test_the_installed_wheel_runs_the_demo_outside_the_checkout(wheel, tmp_path):

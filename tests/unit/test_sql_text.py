@@ -74,10 +74,6 @@ REVIEWED = {
     "the call sites); cols from contract.LEDGER_COLUMNS/CUSTOMER_COLUMNS",
     ("tasks/ingest/loads.py", ("table",)): "a literal tuple of three table names",
     (
-        "tasks/quality/accepted_txn_ids.py",
-        ("DEFINITION",),
-    ): "a constant of that module (the key table's definition); the load ids go in as a bound parameter",
-    (
         "tasks/publish/snapshot.py",
         ("table", "model.query"),
     ): "table a literal at the call site; query read from a packaged SQL file",
@@ -108,7 +104,7 @@ REVIEWED = {
     ): "carried: helper column names from validate's own "
     "_NAMES_A_FIELD, double-quoted; flags: predicates built by pushdown.predicate from suite rules whose column "
     "names pass translatable() (an identifier pattern and present in the query), values bound as $regex_i, "
-    "$set_i, $min_i, $max_i; query: validate's _PARSED_QUERY",
+    "$set_i, $min_i, $max_i; query: the packaged file sql/queries/quality/ledger_checks.sql",
     (
         "tasks/quality/pushdown.py",
         ("tallies", "checks"),
@@ -129,14 +125,6 @@ REVIEWED = {
         ("column",),
     ): "the suite's column name, checked against the contract's columns by "
     "read_suite's caller (a packaged suite)",
-    (
-        "tasks/quality/validate.py",
-        (
-            "columns=', '.join((f'cur.{c}' for c in LEDGER_COLUMNS))",
-            "control_field=_first_field(\"regexp_matches(cur.{c}, '[\\\\x00-\\\\x1f\\\\x7f]')\")",
-            "long_field=_first_field('length(cur.{c}) > $max_field_length')",
-        ),
-    ): "column names from contract.LEDGER_COLUMNS and SQL text of our own; the length limit is bound",
     (
         "tasks/core/warehouse.py",
         ("self.relation", "self.query"),

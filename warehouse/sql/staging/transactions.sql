@@ -5,8 +5,8 @@
 -- txn_id sent again in a later accepted file keeps its first booking (earliest load, then lowest line).
 -- The monthly run appends new loads to this table rather than rebuilding it
 -- (ledgerband.tasks.layers.transactions): it runs this file with `records` reading only the new loads'
--- records whose txn_id is not held yet, so this file is the definition both ways, and the whole
--- rebuild when the history changed.
+-- records whose txn_id is not held yet (sql/queries/layers/transactions_held_again.sql finds those held),
+-- so this file is the definition both ways, and the whole rebuild when the history changed.
 
 with
 
