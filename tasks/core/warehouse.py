@@ -277,7 +277,7 @@ def _table_exists(con: duckdb.DuckDBPyConnection, relation: str) -> bool:
 
 
 def apply_schema(con: duckdb.DuckDBPyConnection) -> list[int]:
-    """Create every schema and table in its final form (idempotent); bring a warehouse written by an
+    """Apply the schema: every schema and table in its final form (idempotent); bring a warehouse written by an
     earlier version to that form with the migrations it has not had; then the views the load stages read.
     Returns the versions of the migrations run (none for a new warehouse, which is born in final form).
 
