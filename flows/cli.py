@@ -349,7 +349,7 @@ def _published_periods(s) -> set[str]:
     con = connect(s.warehouse_path, read_only=True)
     try:
         return {p for (p,) in con.execute("select distinct period from published.snapshots").fetchall()}
-    except Exception:  # noqa: BLE001 - no snapshot table yet: nothing published
+    except Exception:  # no snapshot table yet: nothing published
         return set()
     finally:
         con.close()
@@ -364,7 +364,7 @@ class ExportFormat(StrEnum):
 def export(
     period: Annotated[str, typer.Option(help="Published month, YYYY-MM.")],
     to: Annotated[Path, typer.Option(help="Folder to write the files into.")],
-    format: Annotated[ExportFormat, typer.Option(help="parquet or csv.")] = ExportFormat.parquet,  # noqa: A002
+    format: Annotated[ExportFormat, typer.Option(help="parquet or csv.")] = ExportFormat.parquet,
 ) -> None:
     """Write one published month's tables (income bands, band summary, band movers) to a folder."""
     s = _settings()
@@ -470,14 +470,11 @@ def status(limit: Annotated[int, typer.Option(help="How many recent runs to show
     out.print(f"Recent runs in {s.warehouse_path}:")
     colour = {"published": "green", "withheld": "yellow", "stopped": "red", "failed": "red", "crashed": "red"}
     from ledgerband.tasks.ops.runlock import lock_is_free
+    from ledgerband.tasks.ops.runlog import status_now
 
     nobody_running = lock_is_free(s.home)
     for run_id, period, started, st, error, stages, gates in rows:
-        if st == "running" and nobody_running:  # no process holds the run lock: this one died mid-way
-            st = "crashed"
-            error = (
-                error or "its process ended without finishing the run (the next run records it as crashed)"
-            )
+        st, error = status_now(st, error, nobody_running)
         summary = _stage_summary(json.loads(stages or "[]"))
         out.print(
             f"{str(started)[:19]}  {period}  [{colour.get(st, 'white')}]{st:<9}[/]  {summary:<32}  run {run_id}",

@@ -266,5 +266,5 @@ def _warn(message: str) -> None:
         from prefect import get_run_logger
 
         get_run_logger().warning(message)
-    except Exception:  # noqa: BLE001 - outside a flow run there is no run log
+    except Exception:  # outside a flow run there is no run log
         pass

@@ -147,11 +147,26 @@ class RunLog:
             )
 
 
+CRASH_NOTE = "its process ended without finishing the run (killed or crashed)"
+
+
+def status_now(status: str, error: str | None, lock_free: bool) -> tuple[str, str | None]:
+    """A run row's status as it stands now: the one rule for telling a crashed run.
+
+    A row still 'running' when no process holds the run lock belongs to a process that ended without
+    finishing (SIGKILL, power loss, OOM killer). `status` reads it this way; the next run to take the lock
+    writes it down (`mark_crashed_runs`).
+    """
+    if status == RUNNING and lock_free:
+        return CRASHED, error or f"{CRASH_NOTE}; the next run records it as crashed"
+    return status, error
+
+
 def mark_crashed_runs(con, current_run_id: str) -> int:
     """Mark every other run still 'running' as crashed; returns how many.
 
     Called by a run that holds the run lock: only one run holds it, so any other row still 'running'
-    belongs to a process that ended without finishing (SIGKILL, power loss, OOM killer).
+    is a crash by the rule of `status_now`.
     """
     now = datetime.now()
     rows = run_query(
@@ -160,8 +175,7 @@ def mark_crashed_runs(con, current_run_id: str) -> int:
         "mark_crashed_runs",
         crashed=CRASHED,
         finished_at=now,
-        note=f"its process ended without finishing the run (killed or crashed); found by run {current_run_id} "
-        f"at {now:%Y-%m-%d %H:%M:%S}",
+        note=f"{CRASH_NOTE}; found by run {current_run_id} at {now:%Y-%m-%d %H:%M:%S}",
         running=RUNNING,
         current_run_id=current_run_id,
     ).fetchall()

@@ -91,7 +91,9 @@ def test_every_query_file_opens_with_the_house_header(path):
     assert _field(header, "Grain"), f"{path.name}: no '-- Grain: ...' line"
     assert any(re.search(r"\bKey:", line) for line in header), f"{path.name}: no 'Key: ...'"
     reads = _field(header, "Reads")
-    assert reads and reads.rstrip().endswith("."), f"{path.name}: '-- Reads: ...' must be there and end with '.'"
+    assert reads and reads.rstrip().endswith("."), (
+        f"{path.name}: '-- Reads: ...' must be there and end with '.'"
+    )
     declared = set(_RELATION.findall(reads))
     writes = _field(header, "Writes")
     statement = _body(text).strip()
@@ -123,7 +125,9 @@ def test_every_query_file_is_run_by_some_module_and_every_one_named_exists():
 
 
 def test_parameters_ignore_comments_and_text_literals():
-    text = "-- Parameters: $in_a_comment.\nselect '$in_text', 'it''s $quoted' as x, $real -- $trailing\nfrom t"
+    text = (
+        "-- Parameters: $in_a_comment.\nselect '$in_text', 'it''s $quoted' as x, $real -- $trailing\nfrom t"
+    )
     assert queries.parameters(text) == {"real"}
 
 
@@ -140,4 +144,3 @@ def test_an_unbound_parameter_is_named_with_its_file():
 def test_a_missing_query_file_is_a_clear_error():
     with pytest.raises(LedgerbandError, match=r"no query file sql/queries/ingest/no_such_query\.sql"):
         queries.query_text("ingest", "no_such_query")
-
