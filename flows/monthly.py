@@ -24,6 +24,7 @@ from ledgerband.tasks.gates.labels import label_gate_task
 from ledgerband.tasks.gates.quarantine_share import quality_gate_task
 from ledgerband.tasks.ingest.extracts import find_extracts_task, ingest_customers_task, ingest_extract_task
 from ledgerband.tasks.ingest.loads import LoadResult
+from ledgerband.tasks.ingest.verified import ingest_verified_incomes_task
 from ledgerband.tasks.layers.build import FeatureBuild, build_features_task
 from ledgerband.tasks.modeling.train import TrainSummary, train_task
 from ledgerband.tasks.ops.faults import checkpoint
@@ -32,6 +33,7 @@ from ledgerband.tasks.ops.runlog import FAILED, PUBLISHED, RunLog
 from ledgerband.tasks.ops.schedule import period_for_scheduled
 from ledgerband.tasks.publish.snapshot import parquet_task, publish_task, refresh_reader_copy_task
 from ledgerband.tasks.quality.validate import validate_features_task, validate_load_task
+from ledgerband.tasks.quality.verified import validate_verified_task
 from ledgerband.tasks.report.run_page import run_artifacts
 from ledgerband.tasks.report.run_report import report_task
 from ledgerband.tasks.report.validation_page import keep_task as keep_validation_results_task
@@ -53,15 +55,20 @@ class RunResult:
 
 
 def ingest(ctx: RunContext) -> list[LoadResult]:
-    """Every window month not yet accepted, one task per extract, then the customer file."""
-    return [ingest_extract_task(ctx, m) for m in find_extracts_task(ctx)] + [ingest_customers_task(ctx)]
+    """Every window month not yet accepted, one task per extract, then the customer file, then the optional
+    verified incomes file (absent: noted, 0 records)."""
+    extracts = [ingest_extract_task(ctx, m) for m in find_extracts_task(ctx)]
+    return extracts + [ingest_customers_task(ctx), ingest_verified_incomes_task(ctx)]
 
 
 def validate(ctx: RunContext, loaded: list[LoadResult]) -> Decision:
-    """The suite on each new extract, its results kept (JSON and a page), then the quality gate."""
+    """The suite on each new extract, its results kept (JSON and a page), then the quality gate; the verified
+    incomes file's own suite (its decision never stops the run)."""
     summaries = [validate_load_task(ctx, load) for load in loaded if load.is_new_extract]
     keep_validation_results_task(ctx, summaries)
-    return quality_gate_task(ctx, summaries)
+    quality = quality_gate_task(ctx, summaries)
+    validate_verified_task(ctx)
+    return quality
 
 
 def features(ctx: RunContext) -> FeatureBuild:

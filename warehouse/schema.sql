@@ -20,7 +20,7 @@ create schema if not exists ref;
 -- One row per file the pipeline was handed (ledger extract or customer reference file).
 create table if not exists ops.loads (
     load_id varchar primary key,
-    dataset varchar not null,              -- 'ledger' or 'customers'
+    dataset varchar not null,              -- 'ledger', 'customers' or 'verified_incomes'
     period varchar,                        -- YYYY-MM for ledger extracts
     source_file varchar not null,
     sha256 varchar not null,
@@ -74,6 +74,47 @@ create table if not exists raw.customers (
     sex varchar,
     home_region varchar,
     opened_date varchar
+);
+
+-- The optional verified incomes file (verified_incomes.csv) exactly as received (text), with lineage.
+-- Personal data: incomes documented in credit applications; read by staging.verified_incomes only, never
+-- published. Grain: one row per data record of a file.
+create table if not exists raw.verified_incomes (
+    load_id varchar not null,
+    source_file varchar not null,
+    source_line bigint not null,
+    customer_id varchar,
+    verified_on varchar,
+    annual_net_income varchar,
+    currency varchar,
+    source varchar
+);
+
+-- Verified income records a run set aside, each with the rules it broke (tasks/quality/verified.py). The
+-- rules depend on the run's period (a verification can be in the future or out of date), so every run
+-- judges the file it read again. Grain: one row per (run_id, load_id, source_line). The reason names the
+-- rules and fields, never a value: the values stay in raw.verified_incomes.
+create table if not exists quarantine.verified_incomes (
+    run_id varchar not null,
+    load_id varchar not null,
+    source_file varchar not null,
+    source_line bigint not null,
+    failed_rules varchar[] not null,
+    reason varchar not null,
+    quarantined_at timestamp not null
+);
+
+-- One row per run: the verified incomes file it read (load_id null: none in the landing folder) and its
+-- counts; rows_in_file = rows_accepted + rows_quarantined once checked_at is set.
+create table if not exists ops.verified_income_runs (
+    run_id varchar primary key,
+    period varchar not null,
+    load_id varchar,
+    source_file varchar,
+    rows_in_file bigint not null,
+    rows_accepted bigint,
+    rows_quarantined bigint,
+    checked_at timestamp                   -- the suite ran on it for this run: staging reads it only then
 );
 
 -- Records kept out of staging, each with the rules it broke. Grain: one row per (load_id, source_line).

@@ -58,9 +58,15 @@ class RunContext:
     def customers_file(self) -> Path:
         return self.landing_dir / "customers.csv"
 
+    @property
+    def verified_incomes_file(self) -> Path:
+        """The optional file of verified incomes, beside the customer reference file."""
+        return self.landing_dir / "verified_incomes.csv"  # ingest.extract_contract.VERIFIED_INCOMES_FILE
+
     def layer_params(self) -> dict:
         """Bound parameters of the layer SQL files (each file binds the ones it uses)."""
         return {
+            "run_id": self.run_id,
             "window_start": self.window.start,
             "window_end": self.window.end,
             "salary_window_start": self.salary_window.start,

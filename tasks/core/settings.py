@@ -274,6 +274,20 @@ class FeatureSettings(_Section):
     large_debit_threshold: float = Field(100.0, gt=0)
 
 
+class VerifiedSettings(_Section):
+    """The optional verified incomes file (`verified_incomes.csv`): which of its records a run accepts."""
+
+    max_age_months: int = Field(12, ge=1, le=120)
+    """A verification older than this many months before the period's end is out of date (its record is
+    quarantined, rule verified_on_recent): a year of pay rises and job changes separates it from today
+    (our choice; lending files are commonly refreshed yearly)."""
+    max_annual_income: float = Field(2_000_000, gt=0)
+    """A verified annual net income above this (ledger currency) is taken for a keying error, not an income
+    (rule annual_net_income_not_absurd; common practice: a bound far above any band edge)."""
+    min_customers: int = Field(60, ge=1)
+    """Verified estimated customers needed before the estimates are judged on them."""
+
+
 class ReaderSettings(_Section):
     """What readers get: the published DuckDB copy, Parquet by period, and small-cell suppression."""
 
@@ -386,6 +400,7 @@ class Settings(BaseSettings):
     features: FeatureSettings = FeatureSettings()
     payroll: PayrollSettings = PayrollSettings()
     labels: LabelSettings = LabelSettings()
+    verified: VerifiedSettings = VerifiedSettings()
     readers: ReaderSettings = ReaderSettings()
     scale: ScaleSettings = ScaleSettings()
     schedule: ScheduleSettings = ScheduleSettings()

@@ -21,6 +21,9 @@ LEDGER_COLUMNS = (
     "merchant_region",
 )
 CUSTOMER_COLUMNS = ("customer_id", "birth_date", "sex", "home_region", "opened_date")
+# The optional verified incomes file (beside customers.csv): incomes documented by the bank's lending side.
+VERIFIED_INCOMES_FILE = "verified_incomes.csv"
+VERIFIED_INCOME_COLUMNS = ("customer_id", "verified_on", "annual_net_income", "currency", "source")
 
 
 def sha256_file(path: Path) -> str:

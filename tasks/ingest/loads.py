@@ -24,6 +24,8 @@ RESTATED = "restated"  # replaced by a corrected file through `ledgerband restat
 SKIPPED = "skipped"  # (load result only) the same bytes were accepted before
 LEDGER = "ledger"
 CUSTOMERS = "customers"
+VERIFIED_INCOMES = "verified_incomes"
+ABSENT = "absent"  # (load result only) an optional file that was not in the landing folder
 
 
 @dataclass
@@ -33,7 +35,7 @@ class LoadResult:
     load_id: str
     source_file: str
     period: str | None
-    status: str  # SKIPPED | LOADED | REJECTED
+    status: str  # SKIPPED | LOADED | REJECTED | ABSENT (an optional file not handed in)
     rows_in_file: int = 0
     rows_loaded: int = 0
     rows_malformed: int = 0
@@ -87,7 +89,13 @@ def forget_unaccepted(con: duckdb.DuckDBPyConnection, sha256: str, dataset: str)
         ).fetchall()
     ]
     for load_id in ids:
-        for table in ("raw.ledger_lines", "raw.customers", "quarantine.ledger_lines"):
+        for table in (
+            "raw.ledger_lines",
+            "raw.customers",
+            "raw.verified_incomes",
+            "quarantine.ledger_lines",
+            "quarantine.verified_incomes",
+        ):
             con.execute(f"delete from {table} where load_id = ?", [load_id])
         con.execute("delete from ops.loads where load_id = ?", [load_id])
 
