@@ -11,7 +11,10 @@ code salary; one in ten codes nothing). Salaried customers' pay has the life eve
 run, a job change, leaving, joining, a pay rise, bonuses on another day or on the pay day, a second job.
 Other customers are self-employed, pensioners or paid elsewhere, and some customers get regular credits
 that are not pay (from their own account elsewhere, a lodger, a benefit). Each customer's true income,
-true net pay, pay calendar and life event go to an answer file the pipeline never reads.
+true net pay, pay calendar and life event go to an answer file the pipeline never reads. The bank's lending
+side writes the optional verified incomes file: incomes documented for the customers who applied for credit
+(more often those not paid by payroll here, and those of working age), the true income within a few per
+cent; the answer file marks them (`verified`).
 """
 
 from __future__ import annotations
@@ -31,7 +34,7 @@ import pyarrow.parquet as pq
 
 from ledgerband.tasks.core.errors import LedgerbandError
 from ledgerband.tasks.core.period import Period
-from ledgerband.tasks.ingest.extract_contract import CUSTOMER_COLUMNS, sha256_file
+from ledgerband.tasks.ingest.extract_contract import CUSTOMER_COLUMNS, VERIFIED_INCOMES_FILE, sha256_file
 
 REGIONS = (
     "Corrandale Central",
@@ -71,6 +74,7 @@ class DemoFiles:
     customers: Path
     answers: Path
     rows: int
+    verified_incomes: Path  # the optional verified incomes file (beside customers.csv)
 
 
 def _previous_business_day(d: date) -> date:
@@ -524,6 +528,50 @@ def _spending(rng: np.random.Generator, cust: pd.DataFrame, start: date, end: da
     return rows
 
 
+# The bank's lending side verified some incomes (payslips, tax statements in credit applications). Who
+# applied for credit is not a random sample: customers not paid by payroll here (self-employed, paid
+# elsewhere, pensions) are asked for documents far more often, and people of working age apply more.
+VERIFIED_SHARE = {"payroll": 0.08, "other": 0.45}
+VERIFIED_AGE_FACTOR = {"25-60": 1.3, "outside": 0.6}
+VERIFIED_NOISE_SD = 0.02  # documents state the income of a slightly different twelve months
+VERIFIED_MAX_DAYS_BEFORE = 334  # uniform over 0..11 months (11 x 30.4 days) before the last period's end
+VERIFIED_SOURCES = (
+    "loan application payslips",
+    "mortgage application tax statement",
+    "credit card application payslips",
+    "overdraft review employer letter",
+)
+VERIFIED_STREAM = 20261205  # a random stream of its own: the ledger's bytes do not change with this file
+
+
+def _verified_incomes(seed: int, facts: pd.DataFrame, end: date) -> tuple[pd.DataFrame, pd.Series]:
+    """The lending side's verified incomes: the file's rows, and per customer (facts' order) whether verified.
+
+    `facts` holds customer_id, age, income_kind and true_annual_income, one row per customer.
+    """
+    rng = np.random.default_rng([seed, VERIFIED_STREAM])
+    base = np.where(facts["income_kind"] == "payroll", VERIFIED_SHARE["payroll"], VERIFIED_SHARE["other"])
+    working_age = facts["age"].between(25, 60).to_numpy()
+    factor = np.where(working_age, VERIFIED_AGE_FACTOR["25-60"], VERIFIED_AGE_FACTOR["outside"])
+    probability = np.minimum(base * factor, 1.0)
+    verified = rng.random(len(facts)) < probability
+    chosen = facts[verified]
+    n = len(chosen)
+    days_before = rng.integers(0, VERIFIED_MAX_DAYS_BEFORE + 1, n)
+    noise = rng.normal(0, VERIFIED_NOISE_SD, n)
+    amounts = np.round(chosen["true_annual_income"].to_numpy(dtype=float) * (1 + noise), 2)
+    rows = pd.DataFrame(
+        {
+            "customer_id": chosen["customer_id"].to_numpy(),
+            "verified_on": [(end - timedelta(days=int(d))).isoformat() for d in days_before],
+            "annual_net_income": [f"{a:.2f}" for a in amounts],
+            "currency": "EUR",
+            "source": np.array(VERIFIED_SOURCES)[rng.integers(0, len(VERIFIED_SOURCES), n)],
+        }
+    )
+    return rows, pd.Series(verified, index=facts.index)
+
+
 def _to_cents(x: pd.Series) -> pd.Series:
     return np.round(x.astype(float) * 100).astype("int64")
 
@@ -668,7 +716,17 @@ def generate(
     answers = answers.merge(cust[["customer_id", "occupation", "age"]], on="customer_id").sort_values(
         "customer_id"
     )
+    verified_rows, answers["verified"] = _verified_incomes(seed, answers, end)
+    verified_path = landing_dir / VERIFIED_INCOMES_FILE
+    verified_rows.to_csv(verified_path, index=False, lineterminator="\n")
     answers.to_csv(answers_path, index=False, lineterminator="\n")
     return DemoFiles(
-        landing_dir, [str(p) for p in periods], extracts, manifests, customers_path, answers_path, len(tx)
+        landing_dir,
+        [str(p) for p in periods],
+        extracts,
+        manifests,
+        customers_path,
+        answers_path,
+        len(tx),
+        verified_path,
     )

@@ -189,8 +189,7 @@ def validate_verified(con: duckdb.DuckDBPyConnection, ctx: RunContext) -> Verifi
         if quarantined:
             con.register("verified_quarantine_rows", quarantine)
             con.execute(
-                f"insert into quarantine.verified_incomes ({', '.join(_QUARANTINE_COLUMNS)}) "
-                f"select {', '.join(_QUARANTINE_COLUMNS)} from verified_quarantine_rows"
+                "insert into quarantine.verified_incomes by name select * from verified_quarantine_rows"
             )
             con.unregister("verified_quarantine_rows")
         if row:

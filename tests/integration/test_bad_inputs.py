@@ -177,3 +177,95 @@ def test_a_customer_file_with_a_short_record_that_is_not_utf8_is_refused_by_its_
     with pytest.raises(ExtractError, match=r"customers.csv: line 3 has 4 fields, the header has 5") as e:
         load_customers(con, ctx, path)
     assert "S\\xf6uth" not in str(e.value) and "South" not in str(e.value)
+
+
+# --- the optional verified incomes file (tests/fixtures/bad/verified_incomes/) ---------------------------
+VERIFIED_CATALOGUE = CATALOGUE / "verified_incomes"
+VERIFIED_CASES = sorted(p.name for p in VERIFIED_CATALOGUE.iterdir() if (p / "case.json").is_file())
+
+
+def _verified(con, landing: Path, settings: Settings, run_id: str = "run-1"):
+    """Ingest the customer file and the verified incomes file for October 2026 as the flow does, check it
+    and build staging.verified_incomes; returns the load and the check's summary."""
+    from ledgerband.tasks.ingest.verified import load_verified_incomes
+    from ledgerband.tasks.quality.verified import validate_verified
+
+    ctx = RunContext.create("2026-10", landing, settings=settings, run_id=run_id)
+    load_customers(con, ctx, landing / "customers.csv")
+    load = load_verified_incomes(con, ctx)
+    summary = validate_verified(con, ctx)
+    run_sql_file(con, "staging", "verified_incomes", ctx.layer_params())
+    return load, summary
+
+
+@pytest.mark.parametrize("name", VERIFIED_CASES)
+def test_bad_verified_incomes(name, con, tmp_path):
+    """A refused file names the file and the rule and leaves nothing to stage; a read file has exactly the
+    listed lines quarantined for exactly the listed rules (reason: line and rules, never a value), every
+    other record staged, and no record lost (read = staged + quarantined)."""
+    assert len(VERIFIED_CASES) >= 20, VERIFIED_CASES
+    case = json.loads((VERIFIED_CATALOGUE / name / "case.json").read_text(encoding="utf-8"))
+    landing = tmp_path / name
+    shutil.copytree(VERIFIED_CATALOGUE / name, landing)
+    settings = Settings(home=tmp_path / "state")
+    data = (landing / "verified_incomes.csv").read_bytes()
+
+    if case["outcome"] == "stop":
+        with pytest.raises(ExtractError) as caught:
+            _verified(con, landing, settings)
+        message = str(caught.value)
+        for part in case["message"]:
+            assert part in message, f"{name}: {part!r} not in {message!r}"
+        assert con.execute("select count(*) from raw.verified_incomes").fetchall() == [(0,)]
+        assert con.execute(
+            "select count(*) from ops.loads where dataset = 'verified_incomes'"
+        ).fetchall() == [(0,)]
+        return
+
+    load, summary = _verified(con, landing, settings)
+    rows = con.execute(
+        "select source_line, failed_rules, reason, source_file from quarantine.verified_incomes "
+        "where run_id = 'run-1' order by source_line"
+    ).fetchall()
+    expected = {int(k): sorted(v) for k, v in case.get("quarantined", {}).items()}
+    assert {line: sorted(rules) for line, rules, _, _ in rows} == expected
+    records = [r for r in data.decode("utf-8-sig").splitlines()[1:] if r]
+    values = {v for r in records for v in r.split(",")[:4] if v}
+    for line, rules, reason, source_file in rows:
+        assert Path(source_file).name == "verified_incomes.csv"  # the file …
+        assert reason.startswith(f"line {line}: ")  # … the line …
+        for rule in rules:
+            assert rule in reason  # … and every rule broken
+        assert not [v for v in values if v in reason.split(" ")], reason  # never a value
+    staged = con.execute("select count(*) from staging.verified_incomes").fetchall()[0][0]
+    assert load.rows_in_file == len(records) == staged + summary.rows_quarantined
+    assert summary.rows_quarantined == len(expected)
+    assert con.execute(
+        "select rows_in_file, rows_accepted, rows_quarantined from ops.verified_income_runs where run_id = 'run-1'"
+    ).fetchall() == [(len(records), staged, len(expected))]
+
+
+@pytest.mark.parametrize(
+    "name",
+    [
+        n
+        for n in VERIFIED_CASES
+        if json.loads((VERIFIED_CATALOGUE / n / "case.json").read_text(encoding="utf-8"))["outcome"] != "stop"
+    ],
+)
+def test_duckdb_evaluates_every_verified_incomes_rule_as_gx_does(name, con, tmp_path):
+    """The verified incomes suite by DuckDB predicates and by GX (the reference): same records, same rules,
+    same reasons, same counts."""
+    landing = tmp_path / name
+    shutil.copytree(VERIFIED_CATALOGUE / name, landing)
+    outcomes = []
+    for engine in ("duckdb", "gx"):
+        settings = Settings(home=tmp_path / "state", quality={"engine": engine})
+        _, summary = _verified(con, landing, settings, run_id=f"run-{engine}")
+        quarantined = con.execute(
+            "select source_line, failed_rules, reason from quarantine.verified_incomes where run_id = ? "
+            "order by source_line",
+            [f"run-{engine}"],
+        ).fetchall()
+        outcomes.append((quarantined, summary.rule_counts, summary.rows_quarantined))
+    assert outcomes[0] == outcomes[1]

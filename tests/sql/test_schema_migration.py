@@ -104,10 +104,25 @@ def test_a_migration_that_fails_leaves_the_warehouse_as_it_was(old, monkeypatch)
     monkeypatch.setattr(warehouse, "migrations", lambda: broken)
     with pytest.raises(duckdb.Error):
         apply_schema(old)
+    # schema.sql (run before the migrations, outside their transaction) creates the tables new since the old
+    # version, empty; every table that was there must be as it was.
+    existed = {(r[0], r[1]) for r in before}
     after = [
-        r for r in _catalogue(old, ("BASE TABLE",)) if r[1] not in ("schema_migrations", "pay_frequencies")
+        r
+        for r in _catalogue(old, ("BASE TABLE",))
+        if r[1] not in ("schema_migrations", "pay_frequencies") and (r[0], r[1]) in existed
     ]
     assert after == [r for r in before if r[1] not in ("schema_migrations", "pay_frequencies")]
+    new_tables = (
+        {(r[0], r[1]) for r in _catalogue(old, ("BASE TABLE",))} - existed - {("ops", "schema_migrations")}
+    )
+    assert new_tables == {
+        ("raw", "verified_incomes"),
+        ("quarantine", "verified_incomes"),
+        ("ops", "verified_income_runs"),
+    }
+    for schema, table in new_tables:
+        assert old.execute(f"select count(*) from {schema}.{table}").fetchall() == [(0,)]
     assert old.execute("select count(*) from ops.schema_migrations").fetchall() == [(0,)]
 
 
