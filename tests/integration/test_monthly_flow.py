@@ -260,7 +260,15 @@ def test_rerun_loads_nothing_twice_and_publishes_a_new_snapshot(home, first_run,
     raw_before = _q(home, "select count(*) from raw.ledger_lines")[0][0]
     second = monthly_run("2026-10", demo.landing_dir)
     assert _q(home, "select count(*) from raw.ledger_lines")[0][0] == raw_before
-    assert _q(home, "select count(*) from ops.loads")[0][0] == 5  # four extracts + customers, once each
+    # four extracts, customers and verified incomes, once each
+    assert _q(home, "select count(*) from ops.loads")[0][0] == 6
+    # the verified incomes file, loaded once, is read again by the rerun and judged for its period
+    assert _q(
+        home,
+        "select rows_in_file = rows_accepted + rows_quarantined, load_id = (select min(load_id) from ops.loads "
+        "where dataset = 'verified_incomes') from ops.verified_income_runs where run_id = ?",
+        [second.run_id],
+    ) == [(True, True)]
     assert _q(home, "select run_id from published.snapshots where is_current") == [(second.run_id,)]
     assert _q(home, "select count(*) from published.income_bands")[0][0] == CUSTOMERS
 
@@ -625,10 +633,13 @@ def test_no_customer_level_value_reaches_alerts_artifacts_or_reports(home, first
     where they reach the API as in an operator's setup.)"""
     from prefect.client.orchestration import get_client
 
-    from tests.leaks import demo_needles, leaks
+    from tests.leaks import demo_needles, leaks, verified_pairs
 
-    ids, amounts = demo_needles(demo.customers, demo.extracts)
+    ids, amounts = demo_needles(demo.customers, demo.extracts, demo.verified_incomes)
     assert len(ids) > 10 * CUSTOMERS and len(amounts) > 1_000
+    # the verified incomes (personal data) are among the needles
+    verified_amounts = {a for _, a in verified_pairs(demo.verified_incomes) if a in amounts}
+    assert len(verified_amounts) > CUSTOMERS // 20
     texts: dict[str, str] = {}
     for path in sorted((home / "reports").rglob("*")) + [home / "alerts" / "alerts.jsonl"]:
         if path.is_file() and path.suffix in (".html", ".json", ".jsonl"):
@@ -648,6 +659,65 @@ def test_no_customer_level_value_reaches_alerts_artifacts_or_reports(home, first
     planted = f"<td>{min(ids)}</td> paid {float(min(amounts)):,.2f}"  # the scan finds what it looks for
     assert leaks({"planted.html": planted}, ids, amounts) == {"planted.html": [min(ids), min(amounts)]}
     assert leaks(texts, ids, amounts) == {}
+
+
+def test_the_verified_incomes_are_staged_for_the_run_and_never_published(home, first_run, demo):
+    """The demo's verified incomes file is read (every record valid for October 2026: accepted), staged
+    with the fixed interface, counted in the run's records, and not one verified customer/amount pair or
+    table reaches the readers' copy or its Parquet files."""
+    from tests.leaks import verified_in_rows, verified_pairs
+
+    pairs = verified_pairs(demo.verified_incomes)
+    assert len(pairs) > CUSTOMERS // 20
+    columns = _q(
+        home,
+        "select column_name, data_type from information_schema.columns "
+        "where table_schema = 'staging' and table_name = 'verified_incomes' order by ordinal_position",
+    )
+    assert columns == [
+        ("customer_id", "VARCHAR"),
+        ("verified_on", "DATE"),
+        ("annual_net_income", "DOUBLE"),
+        ("source", "VARCHAR"),
+    ]
+    staged = _q(home, "select customer_id, annual_net_income from staging.verified_incomes")
+    assert {(c, f"{a:.2f}") for c, a in staged} == pairs
+    assert _q(
+        home,
+        "select rows_in_file, rows_accepted, rows_quarantined from ops.verified_income_runs where run_id = ?",
+        [first_run.run_id],
+    ) == [(len(pairs), len(pairs), 0)]
+    [(reason,)] = _q(
+        home,
+        "select reason from published.decisions where run_id = ? and check_name = 'verified_incomes'",
+        [first_run.run_id],
+    )
+    assert (
+        reason
+        == f"verified_incomes.csv: {len(pairs)} of {len(pairs)} records accepted, 0 quarantined (0.00%)"
+    )
+
+    published = duckdb.connect(str(home / "published" / "ledgerband_published.duckdb"), read_only=True)
+    try:
+        tables = [
+            f"{schema}.{table}"
+            for schema, table in published.execute(
+                "select schema_name, table_name from duckdb_tables() union all "
+                "select schema_name, view_name from duckdb_views() where not internal"
+            ).fetchall()
+        ]
+        assert tables and not [t for t in tables if "verified" in t]
+        rows = [row for t in tables for row in published.execute(f"select * from {t}").fetchall()]
+        parquet = sorted((home / "published" / "parquet").rglob("*.parquet"))
+        for path in parquet:
+            rows += published.execute("select * from read_parquet(?)", [str(path)]).fetchall()
+    finally:
+        published.close()
+    assert parquet and len(rows) > CUSTOMERS
+    # the scan finds what it looks for
+    customer, amount = sorted(pairs)[0]
+    assert verified_in_rows([("x", customer, float(amount))], pairs) == [(customer, amount)]
+    assert verified_in_rows(rows, pairs) == []
 
 
 def test_a_forest_champion_above_its_tree_row_bound_says_so_in_the_report(home, first_run, tmp_path):
